@@ -1,0 +1,236 @@
+"""Audio files and JSON sidecars: the only importer of soundfile.
+
+Signals are float64 arrays shaped (channels, samples) inside the package; soundfile's
+(frames, channels) layout is transposed here, once. Every write is atomic: the data goes to a
+temporary file in the target folder, is flushed and fsynced, then renamed over the target, so a
+crash or Ctrl-C never leaves a half-written file behind.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import math
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+
+from measure._validate import check_fs
+from measure.errors import AudioFileError
+
+__all__ = [
+    "Audio",
+    "read_audio",
+    "write_audio",
+    "read_json",
+    "write_json",
+    "sidecar_path",
+    "file_sha256",
+    "atomic_writer",
+]
+
+Subtype = Literal["FLOAT", "PCM_16", "PCM_24", "PCM_32", "DOUBLE"]
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Audio:
+    """Samples read from a file.
+
+    Attributes
+    ----------
+    x : ndarray, shape (channels, samples), float64
+        The samples, full scale = 1.0.
+    fs : int
+        Sample rate in Hz.
+    path : str
+        Where the samples came from.
+    subtype : str
+        The file's sample format (e.g. ``"PCM_24"``, ``"FLOAT"``).
+    """
+
+    x: np.ndarray
+    fs: int
+    path: str
+    subtype: str
+
+    def __post_init__(self) -> None:
+        self.x.setflags(write=False)
+
+    @property
+    def n_channels(self) -> int:
+        return int(self.x.shape[0])
+
+    @property
+    def duration_s(self) -> float:
+        return self.x.shape[1] / self.fs
+
+
+def sidecar_path(path: str | os.PathLike[str]) -> Path:
+    """The JSON sidecar that belongs to an audio file: same folder, same stem, ``.json``."""
+    return Path(path).with_suffix(".json")
+
+
+def read_audio(path: str | os.PathLike[str]) -> Audio:
+    """Read a WAV/FLAC file into a float64 (channels, samples) array.
+
+    Raises
+    ------
+    AudioFileError
+        If the file is missing, unreadable, empty, or holds NaN or Inf samples.
+    """
+    import soundfile as sf
+
+    p = Path(path)
+    if not p.exists():
+        raise AudioFileError(f"{p} does not exist; check the path")
+    if p.is_dir():
+        raise AudioFileError(f"{p} is a folder, not an audio file; give a WAV or FLAC file")
+    try:
+        info = sf.info(str(p))
+        data, fs = sf.read(str(p), dtype="float64", always_2d=True)
+    except (RuntimeError, sf.LibsndfileError, OSError, ValueError) as err:
+        raise AudioFileError(
+            f"cannot read {p} as audio ({err}); give a WAV or FLAC file") from err
+    if data.shape[0] == 0:
+        raise AudioFileError(f"{p} holds no samples; re-record or re-export it")
+    x = np.ascontiguousarray(data.T)
+    if not np.all(np.isfinite(x)):
+        n_bad = int(np.count_nonzero(~np.isfinite(x)))
+        raise AudioFileError(
+            f"{p} holds {n_bad} NaN or Inf samples; re-export it from the recorder as PCM or "
+            "clean float")
+    return Audio(x=x, fs=int(fs), path=str(p), subtype=str(info.subtype))
+
+
+@contextlib.contextmanager
+def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
+    """Open a temporary file beside ``path``; on success fsync and rename it over ``path``.
+
+    On any exception (including KeyboardInterrupt) the temporary file is removed and ``path`` is
+    left as it was.
+    """
+    target = Path(path)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    try:
+        with os.fdopen(fd, mode) as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+        _fsync_dir(target.parent)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+
+
+def _fsync_dir(folder: Path) -> None:
+    # Make the rename itself durable where the platform allows it (not on Windows).
+    with contextlib.suppress(OSError, AttributeError):
+        dfd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)
+
+
+def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
+                subtype: Subtype = "FLOAT") -> Path:
+    """Write (channels, samples) or (samples,) samples to a WAV file atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        Target ``.wav`` file; its folder is created if needed.
+    x : ndarray
+        Samples, full scale = 1.0, time on the last axis.
+    fs : int, > 0, Hz
+        Sample rate.
+    subtype : {"FLOAT", "PCM_16", "PCM_24", "PCM_32", "DOUBLE"}
+        Sample format; impulse responses are 32-bit float.
+    """
+    import soundfile as sf
+
+    fs = check_fs(fs)
+    a = np.asarray(x, dtype=np.float64)
+    if a.ndim == 1:
+        a = a[np.newaxis, :]
+    if not np.all(np.isfinite(a)):
+        raise AudioFileError(f"refusing to write NaN or Inf samples to {path}; this is a bug")
+    target = Path(path)
+    fmt = "WAV" if target.suffix.lower() in (".wav", "") else None
+    with atomic_writer(target) as fh:
+        sf.write(fh, a.T, fs, subtype=subtype, format=fmt or "FLAC")
+    return target
+
+
+def _json_default(obj: Any) -> Any:
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.floating):
+        return None if not math.isfinite(float(obj)) else float(obj)
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, Path):
+        return str(obj)
+    raise TypeError(f"cannot write {type(obj).__name__} to JSON")
+
+
+def _clean(obj: Any) -> Any:
+    """Replace non-finite floats by None so the JSON stays standard (no NaN tokens)."""
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if isinstance(obj, dict):
+        return {k: _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    return obj
+
+
+def dumps(obj: Any) -> str:
+    """Serialise to standard JSON (NaN and Inf become null), indented for reading by eye."""
+    return json.dumps(_clean(obj), indent=2, default=_json_default, allow_nan=False)
+
+
+def write_json(path: str | os.PathLike[str], obj: Any) -> Path:
+    """Write ``obj`` as indented JSON, atomically."""
+    text = dumps(obj) + "\n"
+    target = Path(path)
+    with atomic_writer(target) as fh:
+        fh.write(text.encode("utf-8"))
+    return target
+
+
+def read_json(path: str | os.PathLike[str], *, what: str = "sidecar") -> dict[str, Any]:
+    """Read a JSON object from ``path``.
+
+    Raises
+    ------
+    AudioFileError
+        If the file is missing, not valid JSON, or not a JSON object.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise AudioFileError(f"the {what} {p} does not exist; keep it beside its audio file")
+    try:
+        obj = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as err:
+        raise AudioFileError(f"the {what} {p} is not valid JSON ({err}); restore it") from err
+    if not isinstance(obj, dict):
+        raise AudioFileError(f"the {what} {p} is not a JSON object; restore it")
+    return obj
+
+
+def file_sha256(path: str | os.PathLike[str]) -> str:
+    """Hex SHA-256 of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()

@@ -1,0 +1,65 @@
+"""The ``measure`` command line: one module per subcommand, no numerical work here.
+
+Each subcommand module defines ``NAME``, ``HELP``, ``add_arguments(parser)`` and
+``run(args) -> int``; heavy imports (numpy, scipy, soundfile) happen inside ``run`` so that
+``measure --help`` starts fast. Only :class:`~measure.errors.MeasureError` is caught: it is
+printed as one ``error: ...`` line and the exit status is 2. Anything else is a bug and keeps its
+traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from measure._version import __version__
+
+EXIT_OK = 0
+EXIT_FAILURE = 1  # the job ran but its result is not usable (e.g. a take marked for redo)
+EXIT_USAGE = 2  # bad input: a MeasureError or an argparse usage error
+
+#: Subcommand modules, in the order ``measure --help`` lists them (the pipeline's order).
+COMMANDS: tuple[str, ...] = (
+    "measure.cli.cmd_demo",
+    "measure.cli.cmd_sweep",
+    "measure.cli.cmd_ir",
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="measure",
+        description="Measure rooms with sine sweeps, report ISO 3382-1 figures and fit compact "
+                    "room models for interactive audio.",
+    )
+    parser.add_argument("--version", action="version", version=f"measure {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for modname in COMMANDS:
+        mod = importlib.import_module(modname)
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP),
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        mod.add_arguments(p)
+        p.set_defaults(_run=mod.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit status."""
+    from measure.errors import MeasureError
+
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if getattr(args, "_run", None) is None:
+        parser.print_help()
+        return EXIT_USAGE
+    try:
+        return int(args._run(args) or EXIT_OK)
+    except MeasureError as err:
+        message = " ".join(str(err).split())
+        print(f"error: {message}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("error: interrupted; nothing half-written was kept", file=sys.stderr)
+        return 130

@@ -1,0 +1,83 @@
+"""``measure sweep OUT.wav``: write an exponential sine sweep and its sidecar."""
+
+from __future__ import annotations
+
+import argparse
+
+NAME = "sweep"
+HELP = "write an exponential sine sweep file (WAV + JSON sidecar) to play in the room"
+DESCRIPTION = """\
+Write OUT.wav, exactly what will be played (lead-in silence, the sweeps, the silence after
+each), and OUT.json beside it with every number needed to rebuild the signal and its inverse.
+
+The default level is low (-20 dBFS peak). Before playing anything loud: wear hearing
+protection near loudspeakers, start at low volume and raise it step by step, remember that
+sweeps at high level can destroy tweeters, keep people and animals out of the room, and follow
+local rules on noise."""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    from measure.cli._common import positive_float
+
+    p.add_argument("out", metavar="OUT.wav", help="sweep file to write (its .json goes beside it)")
+    p.add_argument("--rate", type=int, default=48000, metavar="HZ",
+                   help="sample rate in Hz (default 48000)")
+    p.add_argument("--f1", type=positive_float, default=20.0, metavar="HZ",
+                   help="start frequency in Hz (default 20)")
+    p.add_argument("--f2", type=positive_float, default=None, metavar="HZ",
+                   help="stop frequency in Hz (default: Nyquist, rate/2)")
+    p.add_argument("--duration", type=float, default=5.0, metavar="S",
+                   help="seconds of one sweep (default 5)")
+    p.add_argument("--repeats", type=int, default=1, metavar="N",
+                   help="number of sweeps, averaged coherently when the IR is recovered (default 1)")
+    p.add_argument("--gap", type=float, default=2.0, metavar="S",
+                   help="seconds of silence after each sweep, for the room's tail; at least the "
+                        "reverberation time (default 2)")
+    p.add_argument("--lead-in", type=float, default=0.5, metavar="S",
+                   help="seconds of silence before the first sweep (default 0.5)")
+    p.add_argument("--level", type=float, default=None, metavar="DBFS",
+                   help="peak level in dBFS (default -20, deliberately low)")
+    p.add_argument("--fade-in", type=float, default=None, metavar="S",
+                   help="half-Hann fade-in in seconds (default: a tenth of the first octave)")
+    p.add_argument("--fade-out", type=float, default=0.002, metavar="S",
+                   help="half-Hann fade-out in seconds (default 0.002)")
+
+
+def run(args: argparse.Namespace) -> int:
+    from measure import audio_io
+    from measure.cli._common import info
+    from measure.errors import ParameterError
+    from measure.sweep import DEFAULT_LEVEL_DBFS, SweepSpec, make_sweep
+
+    if not str(args.out).lower().endswith(".wav"):
+        raise ParameterError(f"OUT={args.out!r} must end in .wav; name the sweep file e.g. sweep.wav")
+    if args.rate is None or args.rate <= 0:
+        raise ParameterError(f"--rate {args.rate} must be a positive sample rate in Hz, e.g. 48000")
+    f2 = args.f2 if args.f2 is not None else args.rate / 2
+    fade_in = args.fade_in
+    if fade_in is None:
+        fade_in = default_fade_in_s(args.f1, f2, args.duration)
+    spec = SweepSpec(
+        fs=args.rate, f1_hz=args.f1, f2_hz=f2, duration_s=args.duration, repeats=args.repeats,
+        gap_s=args.gap, lead_in_s=args.lead_in,
+        level_dbfs=DEFAULT_LEVEL_DBFS if args.level is None else args.level,
+        fade_in_s=fade_in, fade_out_s=args.fade_out)
+    sweep = make_sweep(spec)
+    wav = audio_io.write_audio(args.out, sweep.program, spec.fs, subtype="FLOAT")
+    side = audio_io.write_json(audio_io.sidecar_path(wav), sweep.sidecar())
+    total_s = spec.n_total / spec.fs
+    info(f"wrote {wav} ({total_s:.2f} s: {spec.repeats} x {spec.duration_s:g} s sweep "
+         f"{spec.f1_hz:g}-{spec.f2_hz:g} Hz at {spec.level_dbfs:g} dBFS peak) and {side}")
+    if spec.gap_s < 1.0:
+        info("note: a gap under 1 s cuts the tail of most rooms; use --gap of at least the "
+             "reverberation time")
+    return 0
+
+
+def default_fade_in_s(f1_hz: float, f2_hz: float, duration_s: float) -> float:
+    """A tenth of the time the sweep spends in its first octave (common practice)."""
+    import math
+
+    if not (f1_hz > 0 and f2_hz > f1_hz and duration_s > 0):
+        return 0.0  # SweepSpec reports the real problem
+    return 0.1 * duration_s * math.log(2.0) / math.log(f2_hz / f1_hz)

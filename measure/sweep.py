@@ -1,0 +1,334 @@
+"""Exponential sine sweeps: design, the signal to play, and the spectrum of its inverse.
+
+The sweep is the exponential (logarithmic) sine sweep of Farina [1]_:
+
+    x(t) = A · sin(2π f1 L (e^{t/L} − 1)),  0 ≤ t < T,  L = T / ln(f2/f1),
+
+whose instantaneous frequency f1·e^{t/L} spends equal time in every octave. Its inverse is
+applied by regularised spectral division (Kirkeby et al. [2]_): H = Y·X* / (|X|² + ε(f)), with
+ε tiny inside [f1, f2] and large outside, so that the in-band response of a wire is exactly flat
+and the harmonic-distortion products land before the linear impulse response, advanced by
+L·ln N for the N-th harmonic [1]_.
+
+Everything that defines the signal is in :class:`SweepSpec`; :func:`make_sweep` rebuilds it bit
+for bit from those numbers, which is what the JSON sidecar stores.
+
+References
+----------
+.. [1] A. Farina, "Simultaneous measurement of impulse response and distortion with a
+   swept-sine technique", AES 108th Convention, Paris, 2000, preprint 5093.
+.. [2] O. Kirkeby, P. A. Nelson, H. Hamada, F. Orduna-Bustamante, "Fast deconvolution of
+   multichannel systems using regularization", IEEE Trans. Speech Audio Process. 6(2), 1998.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from measure._validate import check_fs, check_nonnegative, check_positive
+from measure._version import __version__
+from measure.errors import AudioFileError, ParameterError
+
+__all__ = [
+    "SweepSpec",
+    "Sweep",
+    "make_sweep",
+    "sweep_signal",
+    "inverse_spectrum",
+    "spec_from_dict",
+    "SIDECAR_FORMAT",
+    "DEFAULT_LEVEL_DBFS",
+]
+
+SIDECAR_FORMAT = "measure.sweep/1"
+#: Peak level of a new sweep. Deliberately low: raise it step by step after a level check.
+DEFAULT_LEVEL_DBFS = -20.0
+#: Regularisation of the spectral division, relative to the largest |X|² (see inverse_spectrum).
+IN_BAND_REGULARISATION = 1e-9
+OUT_OF_BAND_REGULARISATION = 1.0
+#: Width of the raised-cosine step of the regularisation at f1 and f2, in octaves.
+TRANSITION_OCTAVES = 1.0 / 6.0
+
+
+@dataclass(frozen=True, slots=True)
+class SweepSpec:
+    """Every number that defines a sweep file; rebuilt bit for bit by :func:`make_sweep`.
+
+    Parameters
+    ----------
+    fs : int, > 0, Hz
+        Sample rate.
+    f1_hz : float, > 0, Hz
+        Start frequency.
+    f2_hz : float, f1_hz < f2_hz <= fs/2, Hz
+        Stop frequency. Running up to Nyquist (the default of the command line) gives a loopback
+        impulse of unit peak.
+    duration_s : float, > 0, s
+        Length of one sweep.
+    repeats : int, >= 1
+        Number of sweeps in the file, each followed by ``gap_s`` of silence.
+    gap_s : float, >= 0, s
+        Silence after each sweep, for the room's tail; make it at least the reverberation time.
+    lead_in_s : float, >= 0, s
+        Silence before the first sweep.
+    level_dbfs : float, <= 0, dBFS
+        Peak level of the sweep.
+    fade_in_s, fade_out_s : float, >= 0, s
+        Half-Hann fade lengths at the start and end of each sweep.
+    """
+
+    fs: int
+    f1_hz: float
+    f2_hz: float
+    duration_s: float
+    repeats: int = 1
+    gap_s: float = 2.0
+    lead_in_s: float = 0.5
+    level_dbfs: float = DEFAULT_LEVEL_DBFS
+    fade_in_s: float = 0.05
+    fade_out_s: float = 0.002
+
+    def __post_init__(self) -> None:
+        fs = check_fs(self.fs)
+        f1 = check_positive(self.f1_hz, "f1", unit="Hz")
+        f2 = check_positive(self.f2_hz, "f2", unit="Hz")
+        nyquist = fs / 2
+        if f2 > nyquist:
+            raise ParameterError(
+                f"the stop frequency f2={f2:g} Hz exceeds Nyquist ({nyquist:g} Hz at {fs} Hz); "
+                "lower f2 or use a higher sample rate")
+        if not f1 < f2:
+            raise ParameterError(
+                f"the start frequency f1={f1:g} Hz must be below the stop frequency f2={f2:g} Hz; "
+                "swap or change them")
+        check_positive(self.duration_s, "duration", unit="s")
+        if isinstance(self.repeats, bool) or int(self.repeats) != self.repeats or self.repeats < 1:
+            raise ParameterError(f"repeats={self.repeats!r} must be a whole number >= 1")
+        check_nonnegative(self.gap_s, "gap", unit="s")
+        check_nonnegative(self.lead_in_s, "lead-in", unit="s")
+        check_nonnegative(self.fade_in_s, "fade-in", unit="s")
+        check_nonnegative(self.fade_out_s, "fade-out", unit="s")
+        if not np.isfinite(self.level_dbfs) or self.level_dbfs > 0:
+            raise ParameterError(
+                f"level={self.level_dbfs!r} dBFS must be at most 0 dBFS (full scale); "
+                "start low, e.g. -20, and raise it step by step")
+        if self.fade_in_s + self.fade_out_s > self.duration_s:
+            raise ParameterError(
+                f"the fades ({self.fade_in_s:g} s + {self.fade_out_s:g} s) are longer than the "
+                f"sweep ({self.duration_s:g} s); shorten them or lengthen the sweep")
+        if self.n_sweep < 16:
+            raise ParameterError(
+                f"a {self.duration_s:g} s sweep at {fs} Hz has fewer than 16 samples; lengthen it")
+        object.__setattr__(self, "fs", fs)
+        object.__setattr__(self, "repeats", int(self.repeats))
+
+    # -- derived sizes (all in samples) -------------------------------------------------------
+    @property
+    def rate_constant_s(self) -> float:
+        """L = T / ln(f2/f1), the sweep's rate constant in seconds."""
+        return self.duration_s / math.log(self.f2_hz / self.f1_hz)
+
+    @property
+    def n_sweep(self) -> int:
+        return int(round(self.duration_s * self.fs))
+
+    @property
+    def n_gap(self) -> int:
+        return int(round(self.gap_s * self.fs))
+
+    @property
+    def n_lead(self) -> int:
+        return int(round(self.lead_in_s * self.fs))
+
+    @property
+    def n_period(self) -> int:
+        """Samples from the start of one sweep to the start of the next."""
+        return self.n_sweep + self.n_gap
+
+    @property
+    def n_total(self) -> int:
+        return self.n_lead + self.repeats * self.n_period
+
+    @property
+    def peak(self) -> float:
+        return 10.0 ** (self.level_dbfs / 20.0)
+
+    def harmonic_advance_s(self, order: int) -> float:
+        """How far the ``order``-th harmonic IR lands before the linear one: L·ln(order) [1]."""
+        return self.rate_constant_s * math.log(order)
+
+    def sweep_start(self, k: int) -> int:
+        """Index of the first sample of sweep ``k`` (0-based) in the played file."""
+        return self.n_lead + k * self.n_period
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+def spec_from_dict(d: dict[str, Any], *, source: str = "sidecar") -> SweepSpec:
+    """Rebuild a :class:`SweepSpec` from a sweep sidecar.
+
+    Raises
+    ------
+    AudioFileError
+        If the sidecar is of another format or lacks a field.
+    """
+    if d.get("format") != SIDECAR_FORMAT:
+        raise AudioFileError(
+            f"{source} has format {d.get('format')!r}, expected {SIDECAR_FORMAT!r}; "
+            "make the sweep again with `measure sweep`")
+    try:
+        spec = d["sweep"]
+        return SweepSpec(**{k: spec[k] for k in SweepSpec.__dataclass_fields__})
+    except (KeyError, TypeError) as err:
+        raise AudioFileError(
+            f"{source} lacks the sweep field {err}; make the sweep again with `measure sweep`"
+        ) from err
+    except ParameterError as err:
+        raise AudioFileError(f"{source} holds an invalid sweep: {err}") from err
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Sweep:
+    """A designed sweep: one sweep ``x`` and the whole file to play, ``program``.
+
+    Attributes
+    ----------
+    spec : SweepSpec
+    x : ndarray, (n_sweep,), float64
+        One sweep, peak ``spec.peak``.
+    program : ndarray, (n_total,), float64
+        Lead-in silence, then ``repeats`` × (sweep, gap).
+    """
+
+    spec: SweepSpec
+    x: np.ndarray
+    program: np.ndarray = field(repr=False)
+
+    def __post_init__(self) -> None:
+        self.x.setflags(write=False)
+        self.program.setflags(write=False)
+
+    @property
+    def fs(self) -> int:
+        return self.spec.fs
+
+    def sidecar(self) -> dict[str, Any]:
+        """The JSON sidecar: every number needed to rebuild the signal and its inverse."""
+        s = self.spec
+        return {
+            "format": SIDECAR_FORMAT,
+            "tool_version": __version__,
+            "kind": "exponential sine sweep",
+            "sweep": s.to_dict(),
+            "rate_constant_s": s.rate_constant_s,
+            "n_sweep_samples": s.n_sweep,
+            "n_period_samples": s.n_period,
+            "n_lead_samples": s.n_lead,
+            "n_total_samples": s.n_total,
+            "sample_format": "FLOAT",
+            "fade_shape": "half-Hann",
+            "formula": "x(n) = 10^(level_dbfs/20) * sin(2*pi*f1_hz*L*(exp(n/(fs*L)) - 1)) * fade(n)",
+            "inverse": {
+                "method": "regularised spectral division",
+                "in_band_regularisation": IN_BAND_REGULARISATION,
+                "out_of_band_regularisation": OUT_OF_BAND_REGULARISATION,
+                "transition_octaves": TRANSITION_OCTAVES,
+            },
+            "harmonic_advance_s": {str(n): s.harmonic_advance_s(n) for n in range(2, 6)},
+        }
+
+
+def sweep_signal(spec: SweepSpec, *, stretch: float = 1.0) -> np.ndarray:
+    """One sweep sampled at ``fs·stretch`` (the same continuous signal on a faster clock).
+
+    ``stretch = 1`` gives the samples that are played. A recording device whose clock runs
+    ε fast samples the played sweep at ``fs·(1+ε)``; ``stretch = 1+ε`` reproduces what it
+    records, which is how drift is removed in :mod:`measure.deconvolve`.
+    """
+    if not (stretch > 0):
+        raise ParameterError(f"stretch={stretch!r} must be positive")
+    fs_eff = spec.fs * stretch
+    n = int(round(spec.n_sweep * stretch))
+    t = np.arange(n) / fs_eff
+    L = spec.rate_constant_s
+    # expm1 keeps the phase accurate near t = 0; the phase is reduced mod 2π before sin().
+    phase = 2.0 * math.pi * spec.f1_hz * L * np.expm1(t / L)
+    x = np.sin(np.mod(phase, 2.0 * math.pi))
+    w = np.ones(n)
+    if spec.fade_in_s > 0:
+        u = t / spec.fade_in_s
+        m = u < 1.0
+        w[m] = 0.5 - 0.5 * np.cos(math.pi * u[m])
+    if spec.fade_out_s > 0:
+        u = (spec.duration_s - t) / spec.fade_out_s
+        m = u < 1.0
+        w[m] = np.minimum(w[m], 0.5 - 0.5 * np.cos(math.pi * np.clip(u[m], 0.0, 1.0)))
+    return spec.peak * x * w
+
+
+def make_sweep(spec: SweepSpec) -> Sweep:
+    """Build the sweep and the whole file to play from ``spec`` (deterministic, bit for bit).
+
+    Examples
+    --------
+    >>> s = make_sweep(SweepSpec(fs=8000, f1_hz=50.0, f2_hz=4000.0, duration_s=1.0,
+    ...                          repeats=2, gap_s=0.5, lead_in_s=0.25))
+    >>> s.program.shape, round(float(abs(s.x).max()), 3)
+    ((14000,), 0.1)
+    """
+    x = sweep_signal(spec)
+    program = np.zeros(spec.n_total)
+    for k in range(spec.repeats):
+        i = spec.sweep_start(k)
+        program[i:i + spec.n_sweep] = x
+    return Sweep(spec=spec, x=x, program=program)
+
+
+def _regularisation_weight(f_hz: np.ndarray, f1_hz: float, f2_hz: float, nyquist_hz: float
+                           ) -> np.ndarray:
+    """ε(f) shape: IN_BAND inside [f1, f2], OUT_OF_BAND outside, raised-cosine steps in log f."""
+    lo, hi = math.log2(IN_BAND_REGULARISATION), math.log2(OUT_OF_BAND_REGULARISATION)
+    with np.errstate(divide="ignore"):
+        lf = np.log2(np.maximum(f_hz, 1e-12))
+    below = np.clip((math.log2(f1_hz) - lf) / TRANSITION_OCTAVES, 0.0, 1.0)
+    above = np.clip((lf - math.log2(f2_hz)) / TRANSITION_OCTAVES, 0.0, 1.0)
+    if f2_hz >= nyquist_hz * 0.999:  # a sweep up to Nyquist has no band above it
+        above = np.zeros_like(above)
+    step = np.maximum(below, above)
+    ramp = 0.5 - 0.5 * np.cos(math.pi * step)
+    return 2.0 ** (lo + (hi - lo) * ramp)
+
+
+def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np.ndarray:
+    """rfft-domain inverse of one sweep: X*/(|X|² + ε), for deconvolution by multiplication.
+
+    Parameters
+    ----------
+    spec : SweepSpec
+    n_fft : int
+        FFT length; at least the recording length plus the sweep length, so that the linear
+        convolution does not wrap.
+    stretch : float
+        Clock ratio of the recorder to the player (1 + drift), see :func:`sweep_signal`.
+
+    Returns
+    -------
+    ndarray, (n_fft//2 + 1,), complex128
+        Multiply the rfft of a recording by this and take the irfft: the impulse response of
+        sweep start ``s`` in the recording appears at index ``s``; harmonic products at negative
+        lags wrap to the end.
+    """
+    x = sweep_signal(spec, stretch=stretch)
+    if n_fft < x.size:
+        raise ParameterError(f"n_fft={n_fft} is shorter than the sweep ({x.size} samples)")
+    X = np.fft.rfft(x, n_fft)
+    power = X.real**2 + X.imag**2
+    f = np.fft.rfftfreq(n_fft, 1.0 / (spec.fs * stretch))
+    eps = float(power.max()) * _regularisation_weight(f, spec.f1_hz, spec.f2_hz,
+                                                      spec.fs * stretch / 2)
+    return np.conj(X) / (power + eps)
