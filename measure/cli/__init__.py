@@ -24,6 +24,10 @@ EXIT_USAGE = 2  # bad input: a MeasureError or an argparse usage error
 COMMANDS: tuple[str, ...] = (
     "measure.cli.cmd_demo",
     "measure.cli.cmd_sweep",
+    "measure.cli.cmd_devices",
+    "measure.cli.cmd_level",
+    "measure.cli.cmd_capture",
+    "measure.cli.cmd_import",
     "measure.cli.cmd_ir",
 )
 

@@ -1,0 +1,214 @@
+"""Rooms, positions and takes on disk: ``CAPTURES/ROOM/POSITION-takeN.wav`` + ``.json``.
+
+A take is claimed, never overwritten: the audio is first written completely to a hidden
+temporary file in the room's folder (:func:`measure.audio_io.write_audio`: temporary file, fsync,
+rename), then hard-linked to the first free ``POSITION-takeN.wav``. The link fails if that name
+exists, so two captures running at once, or a stale listing, can never overwrite a take; the
+next number is tried instead. On file systems without hard links (FAT, exFAT on memory cards) the
+name is checked and the file renamed into place. The sidecar is written atomically right after.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import errno
+import os
+import re
+import uuid
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from measure._version import __version__
+from measure.audio_io import read_json, sidecar_path, write_audio, write_json
+from measure.errors import AudioFileError, ParameterError
+
+__all__ = [
+    "TAKE_FORMAT",
+    "Take",
+    "check_label",
+    "room_dir",
+    "take_numbers",
+    "next_take_number",
+    "save_take",
+    "update_sidecar",
+    "list_takes",
+]
+
+TAKE_FORMAT = "measure.take/1"
+#: Characters refused in room and position names: path separators and those Windows forbids.
+_BAD_CHARS = set('<>:"/\\|?*') | {chr(c) for c in range(32)}
+_MAX_TRIES = 10000
+
+
+@dataclass(frozen=True, slots=True)
+class Take:
+    """Where a take lives: its number and its two files."""
+
+    room: str
+    position: str
+    number: int
+    wav: Path
+    json: Path
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"room": self.room, "position": self.position, "take": self.number,
+                "wav": str(self.wav), "json": str(self.json)}
+
+
+def check_label(value: str, what: str) -> str:
+    """Return ``value`` stripped if it can name a folder or a file on every system, else raise."""
+    text = str(value).strip()
+    bad = sorted({c for c in text if c in _BAD_CHARS})
+    if not text or text in (".", "..") or text.startswith(".") or bad or text.endswith(" "):
+        shown = "".join(bad) if bad else text
+        raise ParameterError(
+            f"{what}={value!r} cannot be used as a file name ({shown!r}); use letters, digits, "
+            "spaces, '-' and '_', e.g. 'hall' or 'S1-R2'")
+    if re.search(r"-take\d+$", text):
+        raise ParameterError(
+            f"{what}={value!r} ends like a take number; drop the '-takeN', it is added for you")
+    return text
+
+
+def room_dir(captures: str | os.PathLike[str], room: str) -> Path:
+    return Path(captures) / check_label(room, "room")
+
+
+def _take_pattern(position: str) -> re.Pattern[str]:
+    return re.compile(re.escape(position) + r"-take(\d+)\.(wav|json)", re.IGNORECASE)
+
+
+def take_numbers(captures: str | os.PathLike[str], room: str, position: str) -> list[int]:
+    """Take numbers present for a position (from either the audio or the sidecar), ascending."""
+    folder = room_dir(captures, room)
+    position = check_label(position, "position")
+    if not folder.is_dir():
+        return []
+    pat = _take_pattern(position)
+    found = {int(m.group(1)) for p in folder.iterdir() if (m := pat.fullmatch(p.name))}
+    return sorted(found)
+
+
+def next_take_number(captures: str | os.PathLike[str], room: str, position: str) -> int:
+    """One more than the highest take number present (1 for a new position)."""
+    nums = take_numbers(captures, room, position)
+    return (nums[-1] + 1) if nums else 1
+
+
+def _paths(folder: Path, position: str, n: int) -> tuple[Path, Path]:
+    wav = folder / f"{position}-take{n}.wav"
+    return wav, sidecar_path(wav)
+
+
+def _claim(tmp: Path, folder: Path, position: str, start: int) -> tuple[int, Path, Path]:
+    """Give ``tmp`` the first free take name from ``start`` on, never replacing a file."""
+    n = start
+    for _ in range(_MAX_TRIES):
+        wav, js = _paths(folder, position, n)
+        if js.exists() or wav.exists():
+            n += 1
+            continue
+        try:
+            os.link(tmp, wav)
+        except FileExistsError:
+            n += 1
+            continue
+        except OSError as err:
+            if err.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV,
+                                 errno.EMLINK, errno.ENOSYS, errno.EACCES):
+                raise
+            # No hard links here: rename into the free name (checked just above).
+            os.replace(tmp, wav)
+            return n, wav, js
+        os.unlink(tmp)
+        return n, wav, js
+    raise AudioFileError(f"no free take number for {position!r} in {folder}; tidy the folder")
+
+
+def save_take(captures: str | os.PathLike[str], room: str, position: str, y: np.ndarray, fs: int,
+              sidecar: dict[str, Any], *, subtype: str = "FLOAT") -> Take:
+    """Write a recording as the next take of ``room``/``position`` with its sidecar.
+
+    Parameters
+    ----------
+    captures : path-like
+        The captures folder; ``ROOM/`` is created inside it if needed.
+    room, position : str
+        Names checked by :func:`check_label`.
+    y : ndarray, (channels, samples)
+        The raw recording, written as is (never normalised or clipped).
+    fs : int, Hz
+    sidecar : dict
+        Everything known about the take; ``format``, ``tool_version``, ``room``, ``position``,
+        ``take``, ``audio_file`` and ``fs`` are added here.
+    subtype : str
+        Sample format of the WAV (32-bit float by default: it keeps whatever the device gave).
+
+    Returns
+    -------
+    Take
+
+    Raises
+    ------
+    ParameterError
+        If a name cannot be used as a file name.
+    AudioFileError
+        If the folder cannot be written.
+    """
+    room = check_label(room, "room")
+    position = check_label(position, "position")
+    folder = room_dir(captures, room)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise AudioFileError(f"cannot create the folder {folder} ({err}); check the path and "
+                             "permissions of --captures") from err
+    tmp = folder / f".{position}.{uuid.uuid4().hex}.tmp.wav"
+    try:
+        write_audio(tmp, y, fs, subtype=subtype)  # type: ignore[arg-type]
+        n, wav, js = _claim(tmp, folder, position, next_take_number(captures, room, position))
+    except OSError as err:
+        raise AudioFileError(f"cannot write the take into {folder} ({err}); check free space and "
+                             "permissions") from err
+    finally:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+    side = {"format": TAKE_FORMAT, "tool_version": __version__, "room": room,
+            "position": position, "take": n, "audio_file": wav.name, "fs": int(fs),
+            "n_channels": int(np.atleast_2d(y).shape[0]),
+            "n_samples": int(np.atleast_2d(y).shape[1])}
+    side.update({k: v for k, v in sidecar.items() if k not in side})
+    try:
+        write_json(js, side)
+    except OSError as err:
+        raise AudioFileError(
+            f"the take {wav} is complete but its sidecar {js} could not be written ({err}); "
+            "free some space and keep the WAV") from err
+    return Take(room=room, position=position, number=n, wav=wav, json=js)
+
+
+def update_sidecar(take: Take, **fields: Any) -> dict[str, Any]:
+    """Add fields to a take's sidecar (atomically); the audio is never touched."""
+    side = read_json(take.json)
+    side.update(fields)
+    write_json(take.json, side)
+    return side
+
+
+def list_takes(captures: str | os.PathLike[str]) -> list[Take]:
+    """Every take under ``captures`` (those whose audio and sidecar both exist)."""
+    root = Path(captures)
+    out: list[Take] = []
+    if not root.is_dir():
+        return out
+    pat = re.compile(r"(.+)-take(\d+)\.wav", re.IGNORECASE)
+    for folder in sorted(p for p in root.iterdir() if p.is_dir()):
+        for p in sorted(folder.iterdir()):
+            m = pat.fullmatch(p.name)
+            if m and not p.name.startswith(".") and sidecar_path(p).exists():
+                out.append(Take(room=folder.name, position=m.group(1), number=int(m.group(2)),
+                                wav=p, json=sidecar_path(p)))
+    return out
