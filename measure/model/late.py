@@ -1,0 +1,645 @@
+"""Late reverberation: a feedback delay network whose decay follows a measured one band by band.
+
+The network (Stautner & Puckette [1]_, Jot & Chaigne [2]_) has ``N`` delay lines of pairwise
+coprime lengths ``m_i`` samples and an orthogonal feedback matrix ``A``:
+
+    s_i(n + m_i) = Σ_j A_ij · g_j · s_j(n) + b_i · x(n),      y(n) = Σ_i c_i · s_i(n),
+
+where ``s_i(n)`` is the sample leaving line ``i`` at time ``n``. With ``g_j = 1`` and ``A``
+orthogonal, what leaves the lines each sample (``‖s(n)‖²``) is exactly what enters them
+(``‖A·s(n)‖²``), so the stored energy is constant: the network is lossless. Absorption after Jot
+& Chaigne makes every line lose the same number of decibels per second: a line of ``m_i``
+samples gets the gain
+
+    g_i = 10^(−3 · m_i / (fs · T60)),
+
+so every recirculating path, whatever its lines, decays by 60 dB in ``T60`` seconds. This is
+the comb-filter relation of Schroeder [3]_ applied line by line.
+
+Per-band absorption
+-------------------
+A room's ``T60`` varies with frequency. Two ways were weighed:
+
+* absorption filters in each line (a graphic-EQ cascade of peaking sections per line, designed
+  so that ``20·log10|h_i(e^{jω})| = −60·m_i/(fs·T60(ω))``), run sample by sample or block by
+  block with a filter state per line;
+* one network per octave band with scalar gains ``g_i`` (exact ``T60`` in that band), the band
+  outputs weighted by amplitude-complementary band masks (they sum to one at every frequency)
+  and added.
+
+This module does the second. Its decay per band is exact by construction (a scalar gain is the
+Jot–Chaigne filter evaluated at one frequency, with no design error), it needs no filter design
+that must stay stable for every line and band, all bands run vectorised in one pass of the
+network (a ``(bands, lines, block)`` array per block of ``min(m_i)`` samples), and the
+tone-correction filter becomes one gain per band (the level of each band's late energy) applied
+with the band masks. With equal ``T60`` in every band the masks sum to one and the result is the
+single network's output exactly. The price is that a frequency between two band centres decays
+as a mix of the two neighbouring rates, which an octave-band analysis sees as a slight bend in
+the decay curve; :func:`measure.model.fit.fit_model` calibrates the per-band ``T60`` by
+rendering and re-analysing, which absorbs that bend. Measured accuracy and speed are in
+``bench/bench_model.py`` and ``tests/test_model_late.py``.
+
+References
+----------
+.. [1] J. Stautner, M. Puckette, "Designing multi-channel reverberators", Computer Music
+   Journal 6(1):52–65, 1982.
+.. [2] J.-M. Jot, A. Chaigne, "Digital delay networks for designing artificial reverberators",
+   AES 90th Convention, Paris, 1991, preprint 3030.
+.. [3] M. R. Schroeder, "Natural sounding artificial reverberation", J. Audio Eng. Soc. 10(3),
+   1962.
+.. [4] J. O. Smith III, *Physical Audio Signal Processing*, online book, chapters on feedback
+   delay networks (lossless FDNs, delay-line lengths, tonal correction).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from measure._validate import check_fs, check_positive
+from measure.errors import ParameterError
+
+__all__ = [
+    "DEFAULT_N_LINES",
+    "LateReverb",
+    "DelayNetwork",
+    "NetworkState",
+    "orthogonal_matrix",
+    "coprime_delays",
+    "nominal_delays_s",
+    "line_gains",
+    "run_network",
+    "stored_energy",
+    "band_masks",
+    "render_late",
+    "min_total_delay",
+    "white_levels_db",
+    "calibrate_decay",
+    "octave_t30_s",
+    "make_network",
+]
+
+#: Number of delay lines. 16 is a power of two (a normalised Hadamard matrix exists) and gives a
+#: dense tail within a few round trips (common practice: 8 to 16 lines).
+DEFAULT_N_LINES = 16
+#: Schroeder & Logan's modal-density rule: Σ m_i >= 0.15 · T60 · fs ([4], delay-line lengths).
+MODAL_DENSITY_FACTOR = 0.15
+#: Shortest mean delay of the network, s (a floor for very short decay times).
+MIN_MEAN_DELAY_S = 0.006
+#: Margin over the modal-density rule. Every mode of the network decays at the same rate, so an
+#: octave band's decay curve only wobbles where modes lie closer than their bandwidth (2.2/T60
+#: Hz); a total delay of about twice the rule's minimum (modal overlap ~0.7) gave the smallest
+#: spread of octave-band T30 around its target in trials with T60 = 0.4-2 s (125 Hz-4 kHz);
+#: larger totals raise the overlap and the spread at low frequencies.
+MODAL_DENSITY_MARGIN = 2.0
+#: Width of the raised-cosine crossover between neighbouring band masks, in octaves. Narrower
+#: keeps an octave band's decay purer; wider spreads the masks' impulse response less in time.
+MASK_TRANSITION_OCTAVES = 0.5
+#: The network runs this many mean delays before its output is used, so the late part starts
+#: dense rather than as a handful of first round trips (after three round trips there are
+#: ~N³ paths).
+PREROLL_ROUND_TRIPS = 4.0
+#: :func:`calibrate_decay` keeps each decay time within this factor of where it started: a band
+#: that an octave filter cannot separate from a neighbour with a much longer decay (the analysis
+#: filter's skirt passes the neighbour) must not be driven to nonsense.
+CALIBRATION_RANGE = 1.6
+#: Length of the renderings :func:`calibrate_decay` analyses, in units of the longest T60:
+#: 60 dB of decay, enough for T30's 45 dB of range (ISO 3382-1 5.3.3).
+CALIBRATION_LENGTH = 1.0
+
+
+def orthogonal_matrix(n_lines: int) -> np.ndarray:
+    """The normalised Hadamard matrix ``H_N / √N``: orthogonal, all entries ``±1/√N``.
+
+    Parameters
+    ----------
+    n_lines : int, a power of two >= 2
+
+    Notes
+    -----
+    Among matrices with entries bounded by one it has the largest determinant, and every entry
+    has the same magnitude, so each line feeds every other equally ([4], feedback matrices).
+    """
+    from scipy.linalg import hadamard
+
+    n = int(n_lines)
+    if n < 2 or n & (n - 1):
+        raise ParameterError(
+            f"n_lines={n_lines!r} must be a power of two >= 2 (e.g. 8 or 16) for a Hadamard "
+            "feedback matrix; pick one")
+    return hadamard(n).astype(np.float64) / math.sqrt(n)
+
+
+def _is_prime(k: int) -> bool:
+    if k < 2:
+        return False
+    if k % 2 == 0:
+        return k == 2
+    r = int(math.isqrt(k))
+    return all(k % d for d in range(3, r + 1, 2))
+
+
+def coprime_delays(delays_s: Sequence[float], fs: int) -> tuple[int, ...]:
+    """Delay-line lengths in samples: distinct primes nearest ``delays_s · fs``.
+
+    Distinct primes are pairwise coprime, so no two lines share a recurrence period and the
+    modes of the lines do not pile up ([4], delay-line lengths).
+
+    Parameters
+    ----------
+    delays_s : sequence of float, > 0, s
+        Nominal lengths.
+    fs : int, > 0, Hz
+        Sample rate of the rendering.
+    """
+    fs = check_fs(fs)
+    out: list[int] = []
+    for d in delays_s:
+        target = max(3, int(round(check_positive(d, "delay", unit="s") * fs)))
+        for step in range(0, 10 * target):
+            for cand in (target + step, target - step):
+                if cand >= 2 and cand not in out and _is_prime(cand):
+                    break
+            else:
+                continue
+            break
+        out.append(cand)
+    return tuple(out)
+
+
+def min_total_delay(t60_s: float, fs: int) -> int:
+    """Σ m_i needed for a modal density of 0.15 modes per Hz per second of T60 ([4])."""
+    return int(math.ceil(MODAL_DENSITY_FACTOR * float(t60_s) * fs))
+
+
+def nominal_delays_s(t60_max_s: float, *, n_lines: int = DEFAULT_N_LINES) -> tuple[float, ...]:
+    """Delay-line lengths in seconds, spread geometrically over a 1 : 2.6 range.
+
+    The mean is at least :data:`MIN_MEAN_DELAY_S` and the lengths satisfy the modal-density
+    rule ``Σ m_i >= 0.15 · T60 · fs`` for the longest ``T60`` (rate independent: both sides
+    scale with ``fs``) with the margin :data:`MODAL_DENSITY_MARGIN`.
+    """
+    t60 = check_positive(t60_max_s, "t60_max", unit="s")
+    mean_s = max(MIN_MEAN_DELAY_S, MODAL_DENSITY_MARGIN * MODAL_DENSITY_FACTOR * t60 / n_lines)
+    ratios = np.geomspace(1.0, 2.6, n_lines)
+    ratios = ratios / ratios.mean()
+    # interleave long and short lines so neighbours in the matrix differ in length
+    order = np.argsort(np.arange(n_lines) % 2 * n_lines + np.arange(n_lines))
+    return tuple(float(mean_s * r) for r in ratios[order])
+
+
+def line_gains(delays: Sequence[int], fs: int, t60_s) -> np.ndarray:
+    """Jot–Chaigne line gains ``g_i = 10^(−3 m_i / (fs T60))`` ([2], [3]).
+
+    Parameters
+    ----------
+    delays : sequence of int
+        Line lengths in samples.
+    fs : int, > 0, Hz
+    t60_s : float or array of float, > 0, s
+        One decay time, or one per band (shape ``(bands,)``).
+
+    Returns
+    -------
+    ndarray, shape ``(lines,)`` or ``(bands, lines)``
+    """
+    fs = check_fs(fs)
+    m = np.asarray(delays, dtype=np.float64)
+    t = np.asarray(t60_s, dtype=np.float64)
+    if not np.all(t > 0) or not np.all(np.isfinite(t)):
+        raise ParameterError(f"t60_s={t60_s!r} must be positive and finite; give decay times in s")
+    return 10.0 ** (-3.0 * m / (fs * t[..., np.newaxis]))
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class DelayNetwork:
+    """A feedback delay network, possibly several copies differing only in their line gains.
+
+    Attributes
+    ----------
+    delays : tuple of int
+        Line lengths ``m_i`` in samples.
+    matrix : ndarray, shape (N, N)
+        Feedback matrix ``A``.
+    gains : ndarray, shape (B, N)
+        Per-line gains ``g_i`` of each of ``B`` copies (one per band; ``B = 1`` for one network).
+    b, c : ndarray, shape (N,)
+        Input and output gains.
+    """
+
+    delays: tuple[int, ...]
+    matrix: np.ndarray
+    gains: np.ndarray
+    b: np.ndarray
+    c: np.ndarray
+
+    def __post_init__(self) -> None:
+        n = len(self.delays)
+        if n < 1 or any(int(m) < 1 for m in self.delays):
+            raise ParameterError(f"delays={self.delays!r} must be >= 1 sample each")
+        for name, arr, shape in (("matrix", self.matrix, (n, n)), ("b", self.b, (n,)),
+                                 ("c", self.c, (n,))):
+            if arr.shape != shape:
+                raise ParameterError(f"{name} has shape {arr.shape}; expected {shape}")
+        if self.gains.ndim != 2 or self.gains.shape[1] != n:
+            raise ParameterError(f"gains has shape {self.gains.shape}; expected (bands, {n})")
+        for arr in (self.matrix, self.gains, self.b, self.c):
+            arr.setflags(write=False)
+
+    @property
+    def n_lines(self) -> int:
+        return len(self.delays)
+
+    @property
+    def n_copies(self) -> int:
+        return int(self.gains.shape[0])
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class NetworkState:
+    """What the delay lines hold: ``lines[i][k]`` leaves line ``i`` ``k`` samples from now.
+
+    Each array has shape ``(B, m_i)`` (one row per copy of the network).
+    """
+
+    lines: tuple[np.ndarray, ...]
+
+    def __post_init__(self) -> None:
+        for a in self.lines:
+            a.setflags(write=False)
+
+
+def stored_energy(state: NetworkState) -> np.ndarray:
+    """Energy held in the delay lines, ``Σ_i Σ_k lines[i][k]²``, one value per copy."""
+    return sum(np.sum(a * a, axis=-1) for a in state.lines)
+
+
+def run_network(net: DelayNetwork, n_samples: int, *, x: np.ndarray | None = None,
+                state: NetworkState | None = None) -> tuple[np.ndarray, NetworkState]:
+    """Run the network for ``n_samples`` samples.
+
+    Parameters
+    ----------
+    net : DelayNetwork
+    n_samples : int, >= 0
+    x : ndarray, shape (n,), optional
+        Input, ``n <= n_samples`` (zero after its end). None: no input.
+    state : NetworkState, optional
+        Initial contents of the lines; None: all zero.
+
+    Returns
+    -------
+    y : ndarray, shape (B, n_samples)
+        Output of each copy.
+    state : NetworkState
+        The contents of the lines after the run.
+
+    Notes
+    -----
+    Works in blocks of ``L = min(m_i)`` samples: what leaves the lines during a block was
+    written at least ``L`` samples earlier, so a whole block is one ``(B, N, L)`` array, one
+    gain multiplication and one matrix product. The lines share a circular buffer of length
+    ``P >= max(m_i) + L``.
+    """
+    n_samples = int(n_samples)
+    if n_samples < 0:
+        raise ParameterError(f"n_samples={n_samples} must be >= 0")
+    m = np.asarray(net.delays, dtype=np.int64)
+    n_lines, n_b = net.n_lines, net.n_copies
+    block = int(m.min())
+    p = 1 << int(math.ceil(math.log2(int(m.max()) + block + 1)))
+    buf = np.zeros((n_b, n_lines, p))
+    if state is not None:
+        if len(state.lines) != n_lines:
+            raise ParameterError(f"state has {len(state.lines)} lines; the network has {n_lines}")
+        for i, a in enumerate(state.lines):
+            if a.shape != (n_b, int(m[i])):
+                raise ParameterError(f"state line {i} has shape {a.shape}; expected "
+                                     f"({n_b}, {int(m[i])})")
+            buf[:, i, : m[i]] = a
+    xin = np.zeros(n_samples)
+    if x is not None:
+        xa = np.asarray(x, dtype=np.float64).ravel()
+        if xa.size > n_samples:
+            raise ParameterError(f"the input has {xa.size} samples, more than n_samples={n_samples}")
+        xin[: xa.size] = xa
+    y = np.empty((n_b, n_samples))
+    a_mat, g = net.matrix, net.gains[:, :, np.newaxis]
+    b_vec, c_vec = net.b[:, np.newaxis], net.c
+    has_input = np.flatnonzero(xin)
+    last_input = int(has_input[-1]) if has_input.size else -1
+    k = 0
+    while k < n_samples:
+        n_blk = min(block, n_samples - k)
+        r0 = k % p
+        if r0 + n_blk <= p:
+            s = buf[:, :, r0: r0 + n_blk]
+        else:
+            s = np.concatenate((buf[:, :, r0:], buf[:, :, : r0 + n_blk - p]), axis=2)
+        y[:, k: k + n_blk] = np.einsum("i,bil->bl", c_vec, s)
+        v = np.matmul(a_mat, g * s)
+        if k <= last_input:
+            v += b_vec * xin[k: k + n_blk]
+        for i in range(n_lines):
+            w0 = (k + int(m[i])) % p
+            if w0 + n_blk <= p:
+                buf[:, i, w0: w0 + n_blk] = v[:, i, :]
+            else:
+                cut = p - w0
+                buf[:, i, w0:] = v[:, i, :cut]
+                buf[:, i, : n_blk - cut] = v[:, i, cut:]
+        k += n_blk
+    lines = []
+    for i in range(n_lines):
+        idx = (n_samples + np.arange(int(m[i]))) % p
+        lines.append(buf[:, i, idx].copy())
+    return y, NetworkState(tuple(lines))
+
+
+def _sign_pattern(n: int, salt: int) -> np.ndarray:
+    # A fixed, documented ±1 pattern (bits of a Weyl sequence), so rendering is deterministic
+    # without a random generator: the input and output gains must not be all equal, or the
+    # Hadamard matrix would send the first round trip into a single line.
+    k = np.arange(n)
+    frac = (k * 0.6180339887498949 + salt * 0.7548776662466927) % 1.0
+    return np.where(frac < 0.5, 1.0, -1.0)
+
+
+def band_masks(band_centers_hz: Sequence[float], freqs_hz: np.ndarray, *,
+               transition_octaves: float | None = None) -> np.ndarray:
+    """Amplitude-complementary band masks: ``Σ_b W_b(f) = 1`` at every frequency.
+
+    Between neighbouring centres ``f_b`` and ``f_{b+1}`` the masks cross with a raised cosine
+    (``cos²``/``sin²``) of width ``transition_octaves`` centred on the geometric mean of the two
+    centres; the lowest band extends to DC and the highest to Nyquist.
+
+    Returns
+    -------
+    ndarray, shape (bands, len(freqs_hz))
+    """
+    if transition_octaves is None:
+        transition_octaves = MASK_TRANSITION_OCTAVES
+    fc = np.asarray(band_centers_hz, dtype=np.float64)
+    n_b = fc.size
+    f = np.maximum(np.asarray(freqs_hz, dtype=np.float64), 1e-6)
+    lf = np.log2(f)
+    # up[b](f): share of the bands above the crossover between b and b+1
+    up = np.empty((max(n_b - 1, 0), f.size))
+    for j in range(n_b - 1):
+        edge = 0.5 * (np.log2(fc[j]) + np.log2(fc[j + 1]))
+        width = min(transition_octaves, np.log2(fc[j + 1] / fc[j]))
+        u = np.clip((lf - edge) / width + 0.5, 0.0, 1.0)
+        up[j] = np.sin(0.5 * np.pi * u) ** 2
+    masks = np.ones((n_b, f.size))
+    for j in range(n_b - 1):
+        masks[j] *= 1.0 - up[j]
+        masks[j + 1:] *= up[j]
+    # with non-overlapping transitions the product form equals the partition exactly
+    return masks
+
+
+def white_levels_db(band_centers_hz: Sequence[float], fs: int, total_db: float) -> tuple[float, ...]:
+    """Band levels of a white spectrum whose total energy is ``total_db``.
+
+    Each band gets the share ``∫W_b(f)² df / Σ_b ∫W_b(f)² df`` of the energy, ``W_b`` the masks
+    of :func:`band_masks` up to Nyquist at ``fs``.
+    """
+    fs = check_fs(fs)
+    f = np.linspace(0.0, fs / 2, 8193)
+    w2 = np.sum(band_masks(band_centers_hz, f) ** 2, axis=1)
+    return tuple(float(total_db + 10.0 * math.log10(v / w2.sum())) for v in w2)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class LateReverb:
+    """The late part of a room model, independent of the sample rate.
+
+    Attributes
+    ----------
+    band_centers_hz : tuple of float
+        Octave-band centres, rising.
+    t60_s : tuple of float, > 0, s
+        Decay time per band.
+    level_db : tuple of float, dB
+        Energy of the late part within each band mask, ``10·log10 Σ h_b[n]²``, re the energy of
+        a unit impulse (so the ratio to the direct sound is the same at every sample rate).
+    start_s : float, >= 0, s
+        Where the late part starts, re the direct sound.
+    fade_s : float, >= 0, s
+        Length of its half-Hann fade-in.
+    delays_s : tuple of float, s
+        Nominal delay-line lengths (made distinct primes at the rendering rate).
+    """
+
+    band_centers_hz: tuple[float, ...]
+    t60_s: tuple[float, ...]
+    level_db: tuple[float, ...]
+    start_s: float
+    fade_s: float
+    delays_s: tuple[float, ...]
+
+    def __post_init__(self) -> None:
+        n = len(self.band_centers_hz)
+        if n < 1 or len(self.t60_s) != n or len(self.level_db) != n:
+            raise ParameterError(
+                f"late part: {n} band centres, {len(self.t60_s)} decay times and "
+                f"{len(self.level_db)} levels must be equally many and at least one")
+        fc = np.asarray(self.band_centers_hz, dtype=np.float64)
+        if not np.all(fc > 0) or not np.all(np.diff(fc) > 0):
+            raise ParameterError(f"band_centers_hz={self.band_centers_hz!r} must be positive and "
+                                 "rising")
+        for t in self.t60_s:
+            check_positive(t, "t60", unit="s")
+        if not all(np.isfinite(v) for v in self.level_db):
+            raise ParameterError(f"level_db={self.level_db!r} must be finite")
+        if not (self.start_s >= 0) or not (self.fade_s >= 0):
+            raise ParameterError(f"start_s={self.start_s!r} and fade_s={self.fade_s!r} must be "
+                                 ">= 0")
+        n_l = len(self.delays_s)
+        if n_l < 2 or n_l & (n_l - 1):
+            raise ParameterError(f"{n_l} delay lines given; the network needs a power of two >= 2")
+        for d in self.delays_s:
+            check_positive(d, "delay", unit="s")
+
+    def to_dict(self) -> dict:
+        return {
+            "band_centers_hz": [float(v) for v in self.band_centers_hz],
+            "t60_s": [float(v) for v in self.t60_s],
+            "level_db": [float(v) for v in self.level_db],
+            "start_s": float(self.start_s),
+            "fade_s": float(self.fade_s),
+            "delays_s": [float(v) for v in self.delays_s],
+        }
+
+
+def make_network(late: LateReverb, fs: int) -> DelayNetwork:
+    """The per-band network of ``late`` at rate ``fs`` (bands above Nyquist included)."""
+    delays = coprime_delays(late.delays_s, fs)
+    n = len(delays)
+    return DelayNetwork(
+        delays=delays, matrix=orthogonal_matrix(n),
+        gains=line_gains(delays, fs, np.asarray(late.t60_s)),
+        b=_sign_pattern(n, 1), c=_sign_pattern(n, 2) / math.sqrt(n))
+
+
+def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
+    """The late part alone, ``n_samples`` long, time 0 = the direct sound.
+
+    Parameters
+    ----------
+    late : LateReverb
+    fs : int, > 0, Hz
+    n_samples : int, >= 1
+
+    Returns
+    -------
+    ndarray, shape (n_samples,)
+
+    Notes
+    -----
+    1. Run the per-band network from a unit impulse; drop the first
+       :data:`PREROLL_ROUND_TRIPS` mean delays (the sparse first round trips).
+    2. Apply the half-Hann fade-in and place the start at ``start_s``.
+    3. Weight each band's output with its mask in the frequency domain (zero phase), scale it to
+       its energy ``level_db`` and sum.
+    Bands whose centre lies above 0.9 · Nyquist are left out and their mask's share goes to the
+    highest band kept.
+    """
+    from scipy.fft import irfft, next_fast_len, rfft
+
+    fs = check_fs(fs)
+    n_samples = int(n_samples)
+    fc = np.asarray(late.band_centers_hz)
+    keep = fc < 0.45 * fs
+    if not np.any(keep):
+        raise ParameterError(f"every late band lies above Nyquist at fs={fs}; use a higher rate")
+    net = make_network(late, fs)
+    net = DelayNetwork(net.delays, net.matrix, np.ascontiguousarray(net.gains[keep]), net.b, net.c)
+    start = int(round(late.start_s * fs))
+    fade = int(round(late.fade_s * fs))
+    if start >= n_samples:
+        return np.zeros(n_samples)
+    lead = int(round(0.01 * fs))  # room before the start for the masks' zero-phase spread
+    n_pre = int(round(PREROLL_ROUND_TRIPS * np.mean(net.delays)))
+    n_body = n_samples - start
+    n_run = n_pre + n_body
+    y, _ = run_network(net, n_run, x=np.ones(1))
+    seg = y[:, n_pre:]
+    if fade > 0:
+        k = min(fade, n_body)
+        seg[:, :k] *= np.sin(0.5 * np.pi * (np.arange(k) + 0.5) / fade) ** 2
+    n_fft = next_fast_len(lead + n_body + lead, real=True)
+    buf = np.zeros((seg.shape[0], n_fft))
+    buf[:, lead: lead + n_body] = seg
+    spec = rfft(buf, axis=1)
+    freqs = np.arange(spec.shape[1]) * fs / n_fft
+    masks = band_masks(fc[keep], freqs)
+    spec *= masks
+    # Parseval for a real signal's half spectrum: interior bins count twice
+    wts = np.full(spec.shape[1], 2.0)
+    wts[0] = 1.0
+    if n_fft % 2 == 0:
+        wts[-1] = 1.0
+    energy = (np.abs(spec) ** 2 @ wts) / n_fft
+    target = 10.0 ** (np.asarray(late.level_db)[keep] / 10.0)
+    scale = np.sqrt(target / np.maximum(energy, 1e-300))
+    out_spec = np.einsum("b,bk->k", scale, spec)
+    body = irfft(out_spec, n=n_fft)
+    out = np.zeros(n_samples)
+    lo = start - lead
+    src0 = max(0, -lo)
+    dst0 = max(0, lo)
+    n_copy = min(n_samples - dst0, n_fft - src0)
+    out[dst0: dst0 + n_copy] = body[src0: src0 + n_copy]
+    return out
+
+
+def _analysis_bands(late: LateReverb, fs: int):
+    """The IEC octave bands of :mod:`measure.bands` matching the late part's band centres."""
+    from measure.bands import make_bands
+
+    bands = make_bands(fs, "octave")
+    out = []
+    for f in late.band_centers_hz:
+        match = [b for b in bands if abs(math.log2(b.center_hz / f)) < 0.1]
+        out.append(match[0] if match else None)
+    return out
+
+
+def octave_t30_s(h: np.ndarray, fs: int, bands) -> list[float | None]:
+    """T30 of ``h`` in each band of ``bands`` (None entries stay None), by :mod:`measure.decay`.
+
+    The onset is that of the broadband ``h`` (ISO 3382-1 A.3.4); time-reversed filtering.
+    """
+    from measure.bands import filter_bands
+    from measure.decay import analyze_decay, onset_index
+
+    real = [b for b in bands if b is not None]
+    hb = filter_bands(h, fs, real, mode="reversed")
+    on = onset_index(h, fs)
+    vals = iter([analyze_decay(x, fs, onset=on).t30_s for x in hb])
+    return [None if b is None else next(vals) for b in bands]
+
+
+def calibrate_decay(late: LateReverb, fs: int, target_t30_s: Sequence[float | None], *,
+                    n_iterations: int = 6, tolerance: float = 0.01
+                    ) -> tuple[LateReverb, tuple[float | None, ...]]:
+    """Adjust the network's decay times until the octave-band T30 of its output hits targets.
+
+    An octave-band analysis filter also passes part of the neighbouring bands, whose decay
+    differs, and a single rendering fluctuates around its mean decay (modes beating); so the
+    T30 measured on the output is not exactly the ``t60_s`` asked of the network. This
+    renders the late part alone, measures its T30 per band with :mod:`measure.bands` and
+    :mod:`measure.decay` (the analysis the rest of the package reports), and scales each band's
+    decay time by ``target / measured`` (at most a factor 1.5 per step), until every band is
+    within ``tolerance`` or ``n_iterations`` is spent. The network is deterministic, so the
+    measured T30 is a smooth function of the decay times and the iteration converges in a few
+    steps.
+
+    Parameters
+    ----------
+    late : LateReverb
+    fs : int, > 0, Hz
+        Rate of the analysis (and of the rendering it is tuned for).
+    target_t30_s : sequence of float or None
+        Wanted T30 per band of ``late``; None leaves a band as it is.
+
+    Returns
+    -------
+    late : LateReverb
+        With calibrated ``t60_s``.
+    t30_s : tuple of float or None
+        T30 per band measured on the last rendering.
+    """
+    fs = check_fs(fs)
+    if len(target_t30_s) != len(late.t60_s):
+        raise ParameterError(f"{len(target_t30_s)} targets for {len(late.t60_s)} bands; give one "
+                             "per band (None to leave a band alone)")
+    bands = _analysis_bands(late, fs)
+    t60 = np.asarray(late.t60_s, dtype=np.float64)
+    lo, hi = t60 / CALIBRATION_RANGE, t60 * CALIBRATION_RANGE
+    measured: list[float | None] = [None] * t60.size
+    for _ in range(max(1, int(n_iterations))):
+        n = int(round((late.start_s + CALIBRATION_LENGTH * float(t60.max())) * fs)) + 1
+        cur = LateReverb(late.band_centers_hz, tuple(t60), late.level_db, late.start_s,
+                         late.fade_s, late.delays_s)
+        measured = octave_t30_s(render_late(cur, fs, n), fs, bands)
+        worst = 0.0
+        for i, (want, got) in enumerate(zip(target_t30_s, measured, strict=True)):
+            if want is None or got is None:
+                continue
+            ratio = float(np.clip(want / got, 1 / 1.5, 1.5))
+            worst = max(worst, abs(ratio - 1.0))
+            t60[i] = float(np.clip(t60[i] * ratio, lo[i], hi[i]))
+        if worst < tolerance:
+            break
+        late = cur
+    final = LateReverb(late.band_centers_hz, tuple(float(v) for v in t60), late.level_db,
+                       late.start_s, late.fade_s, late.delays_s)
+    if worst >= tolerance:  # the last step changed t60 after the last measurement: re-measure
+        n = int(round((final.start_s + CALIBRATION_LENGTH * float(t60.max())) * fs)) + 1
+        measured = octave_t30_s(render_late(final, fs, n), fs, bands)
+    return final, tuple(measured)
