@@ -588,35 +588,68 @@ def _deconvolve(seg: np.ndarray, short: Any) -> np.ndarray:
     return np.fft.irfft(np.fft.rfft(seg, n_fft) * inv, n_fft)
 
 
-def _octave_filter(fs: int, centre_hz: float) -> np.ndarray:
-    from scipy.signal import butter
+def _octave_power_response(fs: int, centre_hz: float, f_hz: np.ndarray) -> np.ndarray:
+    """|B(f)|² of an octave band: order-3 Butterworth, edges fc·2^(±1/2) (IEC 61260-1 base-2
+    band edges; a third-order Butterworth is common practice for a quick band level)."""
+    from scipy.signal import butter, sosfreqz
 
-    # Octave band edges fm·2^(±1/2) (IEC 61260-1 base-2 approximation); order-3 Butterworth,
-    # applied forward and backward, is common practice for a quick band level.
-    lo, hi = centre_hz / math.sqrt(2.0), centre_hz * math.sqrt(2.0)
-    return butter(3, [lo, hi], btype="bandpass", fs=fs, output="sos")
+    sos = butter(3, [centre_hz / math.sqrt(2.0), centre_hz * math.sqrt(2.0)], btype="bandpass",
+                 fs=fs, output="sos")
+    _, b = sosfreqz(sos, worN=f_hz, fs=fs)
+    return np.abs(b) ** 2
 
 
-def _pnr(h_sig: np.ndarray, h_noise: np.ndarray) -> float | None:
-    noise = float(np.mean(h_noise ** 2))
-    peak = float(np.max(h_sig ** 2))
-    if not (noise > 0) or not (peak > 0):
+def _band_peak2(h: np.ndarray, fs: int, centre_hz: float) -> float:
+    """Peak power of ``h`` filtered (zero phase, |B|²) into one octave, in the frequency domain."""
+    n = 1 << int(math.ceil(math.log2(2 * h.size)))
+    f = np.fft.rfftfreq(n, 1.0 / fs)
+    hb = np.fft.irfft(np.fft.rfft(h, n) * _octave_power_response(fs, centre_hz, f), n)
+    return float(np.max(hb ** 2))
+
+
+def _ir_noise_power(noise: np.ndarray, fs: int, spec: Any, weights: dict[float, np.ndarray] | None
+                    = None) -> tuple[float, dict[float, float], np.ndarray]:
+    """Noise power per sample in the impulse response that sweep ``spec`` would give.
+
+    For stationary noise of one-sided density S(f), the deconvolved noise h_n = n * f_inv has
+    variance (fs / N) · Σ_k S(f_k) |INV_k|² over the N/2+1 rfft bins of an N-point inverse
+    (Parseval; derived). S(f) is estimated from ``noise`` by Welch's method
+    (scipy.signal.welch), so the prediction holds for any sweep length, not only for lengths the
+    noise recording covers. ``weights`` maps band centres to |B(f)|⁴ on the same bins (the band
+    filter applied forward and backward).
+    """
+    from scipy.signal import welch
+
+    from measure.sweep import inverse_spectrum
+
+    n_fft = 1 << int(math.ceil(math.log2(spec.n_sweep + 1)))
+    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    inv2 = np.abs(inverse_spectrum(spec, n_fft)) ** 2
+    nper = int(min(noise.size, 4096))
+    fw, s = welch(noise, fs=fs, nperseg=nper, detrend=False)
+    s_f = np.interp(f, fw, s)
+    total = float(fs / n_fft * np.sum(s_f * inv2))
+    bands = {fc: float(fs / n_fft * np.sum(s_f * inv2 * w)) for fc, w in (weights or {}).items()}
+    return total, bands, f
+
+
+def _ratio_db(peak2: float, noise2: float) -> float | None:
+    if not (noise2 > 0) or not (peak2 > 0):
         return None
-    return 10.0 * math.log10(peak / noise)
+    return 10.0 * math.log10(peak2 / noise2)
 
 
 def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[int],
                   stopped_at_sample: int | None = None) -> LevelReport:
     """Judge a level-check recording ``y`` (channels, samples) made with :func:`level_program`.
 
-    The loudest complete step is deconvolved with its short sweep; its peak-to-noise, with the
-    noise taken from the same inverse filter applied to the quiet start, is scaled to the real
-    take by 10 lg(T·M / T_short): the noise in a sweep's impulse response falls 3 dB for each
-    doubling of the sweep's length and 10 lg M for M averaged sweeps (measurement sheet §1.5,
-    Müller & Massarani 2001).
+    The loudest complete step is deconvolved with its short sweep: its peak, scaled to the take's
+    level, is the peak the take will have (a linear system's impulse response does not depend on
+    the sweep's length). The noise the take's impulse response will carry is computed from the
+    background noise recorded first: its spectrum times the take's own inverse filter
+    (:func:`_ir_noise_power`), divided by M for M averaged sweeps (measurement sheet §1.5).
+    Both are also computed per octave.
     """
-    from scipy.signal import sosfiltfilt
-
     fs = check_fs(fs)
     y = np.atleast_2d(np.asarray(y, dtype=np.float64))
     _, short, starts = level_program(take_spec)
@@ -631,13 +664,15 @@ def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[
         step_db = LEVEL_STEPS_DB[reached[-1]] if reached else LEVEL_STEPS_DB[0]
     else:
         step_db = LEVEL_STEPS_DB[-1]
-    gain_to_take_db = 10.0 * math.log10(take_spec.duration_s * take_spec.repeats / short.duration_s)
     # The noise segment: the quiet start, minus a margin for the stream's start-up.
     noise = y[:, n_noise // 6: n_noise]
     peaks, noises, clips, pnrs, octs, found, warns = [], [], [], [], [], [], []
     bands = [fc for fc in OCTAVE_CENTRES_HZ
              if fc / math.sqrt(2.0) >= take_spec.f1_hz and fc * math.sqrt(2.0) <= take_spec.f2_hz
              and fc * math.sqrt(2.0) < fs / 2]
+    n_fft_take = 1 << int(math.ceil(math.log2(take_spec.n_sweep + 1)))
+    f_take = np.fft.rfftfreq(n_fft_take, 1.0 / fs)
+    weights = {fc: _octave_power_response(fs, fc, f_take) ** 2 for fc in bands}
     for ci, ch in enumerate(y):
         a = np.abs(ch[:limit])
         clips.append(int(np.count_nonzero(np.abs(ch) >= CLIP_LEVEL)))
@@ -651,20 +686,20 @@ def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[
         s = starts[k_last]
         seg = ch[s:s + period]
         peaks.append(_db(float(np.max(np.abs(ch[starts[0]:limit]))) ** 2))
-        level_scale_db = -LEVEL_STEPS_DB[k_last]  # the step was this far below the take
+        scale2 = 10.0 ** (-LEVEL_STEPS_DB[k_last] / 10.0)  # the step was this far below the take
         h = _deconvolve(seg, short)[:period]
-        hn = _deconvolve(noise[ci], short)[: max(1, noise.shape[1] - short.n_sweep)]
-        p = _pnr(h, hn)
-        # Found: the step's impulse stands clearly out of its own recording's noise.
-        p_step = p if p is not None else (math.inf if np.max(np.abs(h)) > 0 else None)
-        is_found = p_step is not None and p_step > FOUND_PNR_DB and float(np.max(np.abs(seg))) > 0
-        found.append(bool(is_found))
-        pnrs.append(None if p is None else p + level_scale_db + gain_to_take_db)
-        od: dict[float, float | None] = {}
-        for fc in bands:
-            sos = _octave_filter(fs, fc)
-            pb = _pnr(sosfiltfilt(sos, h), sosfiltfilt(sos, hn))
-            od[fc] = None if pb is None else pb + level_scale_db + gain_to_take_db
+        peak2 = float(np.max(h ** 2))
+        # Found: the step's impulse stands clearly out of the noise its own short sweep gives.
+        step_noise, _, _ = _ir_noise_power(noise[ci], fs, short)
+        p_step = _ratio_db(peak2, step_noise)
+        if p_step is None and peak2 > 0:
+            p_step = math.inf  # digital silence around a clear impulse
+        found.append(bool(p_step is not None and p_step > FOUND_PNR_DB))
+        take_noise, band_noise, _ = _ir_noise_power(noise[ci], fs, take_spec, weights)
+        m = take_spec.repeats
+        pnrs.append(_ratio_db(peak2 * scale2, take_noise / m))
+        od: dict[float, float | None] = {
+            fc: _ratio_db(_band_peak2(h, fs, fc) * scale2, band_noise[fc] / m) for fc in bands}
         octs.append(od)
     for ci, c in enumerate(channels):
         name = f"input {c + 1}"
