@@ -1,0 +1,573 @@
+"""Decay analysis of a band-filtered impulse response: Schroeder, Lundeby, EDT/T20/T30.
+
+Pipeline for one band (see :func:`analyze_decay`):
+
+1. The IR start is the ISO 3382-1:2009 A.3.4 onset of the *broadband* IR (:func:`onset_index`):
+   the first sample whose energy comes within 20 dB of the maximum.
+2. The noise floor, the truncation point and the tail compensation come from the iterative
+   method of Lundeby, Vigran, Bietz & Vorländer (1995) (:func:`lundeby`).
+3. The Schroeder backward integral runs from the onset to the truncation point, plus the
+   compensation term (ISO 3382-1:2009 5.3.3, Eq. (3)) (:func:`schroeder`).
+4. EDT, T20 and T30 are least-squares fits over 0…−10, −5…−25 and −5…−35 dB
+   (ISO 3382-1 A.2.2, ISO 3382-2 clause 6), extrapolated to 60 dB.
+5. Honesty checks: each figure needs its fit range plus a margin above the noise
+   (EDT 20 dB, T20 35 dB, T30 45 dB of decay above the noise, ISO 3382-1 5.3.3: the bottom of
+   the evaluation range at least 10 dB above the noise); the band filter must not dominate
+   (B·T > 4 for time-reversed filtering, B·T > 16 for causal, ISO 3382-2 7.3); the decay's
+   non-linearity ξ and curvature C (ISO 3382-2 Annex B) are reported and flagged when large.
+   A figure that fails a check is ``None`` and a flag says why.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+
+from measure._validate import check_choice, check_fs, check_signal
+from measure.errors import ParameterError
+
+__all__ = [
+    "DECAY_CONSTANT",
+    "FIT_RANGES_DB",
+    "REQUIRED_RANGE_DB",
+    "CURVATURE_LIMIT_PERCENT",
+    "XI_LIMIT_PERMILLE",
+    "NoiseFloor",
+    "DecayFigures",
+    "onset_index",
+    "schroeder",
+    "lundeby",
+    "fit_decay",
+    "analyze_decay",
+]
+
+#: 6·ln 10: the energy of an exponential decay with reverberation time T falls as
+#: exp(-DECAY_CONSTANT·t/T) (60 dB in T; derived from the definition of T).
+DECAY_CONSTANT: float = 6.0 * math.log(10.0)
+
+#: Fit ranges on the Schroeder curve, dB (ISO 3382-1:2009 A.2.2; ISO 3382-2:2008 clause 6).
+FIT_RANGES_DB: dict[str, tuple[float, float]] = {
+    "edt": (0.0, -10.0),
+    "t20": (-5.0, -25.0),
+    "t30": (-5.0, -35.0),
+}
+
+#: Decay above the noise each figure needs, dB: the bottom of its fit range at least 10 dB
+#: above the noise (ISO 3382-1:2009 5.3.3: 35 dB for T20, 45 dB for T30; EDT by the same rule).
+REQUIRED_RANGE_DB: dict[str, float] = {"edt": 20.0, "t20": 35.0, "t30": 45.0}
+
+#: |C| above this is flagged as a non-exponential decay (ISO 3382-2:2008 Annex B: "above 10 %
+#: the decay is suspect").
+CURVATURE_LIMIT_PERCENT: float = 10.0
+
+#: ξ above this is flagged (ISO 3382-2:2008 Annex B gives 0–5 ‰ as typical; twice that is
+#: common practice for "look at this decay").
+XI_LIMIT_PERMILLE: float = 10.0
+
+#: Minimum B·T per filtering mode (ISO 3382-2:2008 7.3 and note).
+BT_MIN: dict[str, float] = {"reversed": 4.0, "causal": 16.0}
+
+_NAMES = {"edt": "EDT", "t20": "T20", "t30": "T30"}
+
+
+def onset_index(h: np.ndarray, fs: int) -> int:
+    """Index of the start of an impulse response by the ISO 3382-1 onset rule.
+
+    ISO 3382-1:2009 A.3.4: the start is where the response first rises significantly above the
+    background, and not less than 20 dB below the maximum. This returns the first sample whose
+    energy ``h**2`` is within 20 dB of the maximum of ``h**2``.
+
+    Parameters
+    ----------
+    h : ndarray, shape (n,)
+        Broadband impulse response.
+    fs : int, > 0, Hz
+
+    Raises
+    ------
+    ParameterError
+        If ``h`` is empty, not finite, or all zero.
+
+    Examples
+    --------
+    >>> onset_index(np.array([0.0, 0.01, 0.2, 1.0, 0.5]), 48000)
+    2
+    """
+    h = check_signal(h, "h", ndim=(1,))
+    check_fs(fs)
+    e = h * h
+    peak = float(e.max())
+    if not (peak > 0):
+        raise ParameterError("the impulse response is all zero; record or recover it again")
+    return int(np.argmax(e >= peak * 0.01))
+
+
+def schroeder(h: np.ndarray, *, stop_index: int | None = None,
+              compensation: float = 0.0, noise_power: float = 0.0) -> np.ndarray:
+    """Schroeder backward integral in dB, normalised to 0 dB at the first sample.
+
+    ``E[n] = sum(h[n:stop]**2 - noise_power) + compensation`` and ``L = 10 lg(E/E[0])`` for
+    ``0 <= n < stop`` (Schroeder 1965; with truncation and compensation per ISO 3382-1:2009
+    5.3.3 Eq. (3); subtracting the mean noise power before integrating is Chu's method,
+    JASA 63 (1978), citation from memory, used here together with the truncation).
+
+    Parameters
+    ----------
+    h : ndarray, shape (n,)
+        (Band-filtered) IR starting at its onset.
+    stop_index : int, optional
+        Truncation point (exclusive); default ``len(h)``.
+    compensation : float, >= 0
+        Energy the decay would still carry after ``stop_index``, in the units of a sum of
+        ``h**2`` over samples (see :attr:`NoiseFloor.compensation`).
+    noise_power : float, >= 0
+        Mean ``h**2`` of the background noise, subtracted from every sample before summing.
+
+    Returns
+    -------
+    ndarray, shape (stop_index,)
+        Decay level in dB (−inf where the energy is exactly zero).
+
+    Examples
+    --------
+    >>> L = schroeder(np.sqrt(np.exp(-np.arange(10) * np.log(10.0))))  # 10 dB per sample
+    >>> bool(abs(L[1] + 10.0) < 0.01)
+    True
+    """
+    h = check_signal(h, "h", ndim=(1,))
+    n = h.shape[-1] if stop_index is None else int(stop_index)
+    if not 0 < n <= h.shape[-1]:
+        raise ParameterError(f"stop_index={stop_index} must be in 1..{h.shape[-1]}")
+    if not (compensation >= 0) or not math.isfinite(compensation):
+        raise ParameterError(f"compensation={compensation!r} must be finite and >= 0")
+    if not (noise_power >= 0) or not math.isfinite(noise_power):
+        raise ParameterError(f"noise_power={noise_power!r} must be finite and >= 0")
+    e = h[:n] * h[:n]
+    if noise_power:
+        e = e - noise_power
+    edc = np.cumsum(e[::-1])[::-1] + compensation
+    if not (edc[0] > 0):
+        raise ParameterError("the impulse response has no energy after its onset")
+    # Noise subtraction can leave a few non-positive sums at the very end: hold the last
+    # positive value rather than produce NaN.
+    if noise_power and np.any(edc <= 0):
+        bad = edc <= 0
+        edc = np.where(bad, np.nan, edc)
+        edc = np.fmin.accumulate(np.where(np.isnan(edc), np.inf, edc))
+    with np.errstate(divide="ignore"):
+        return 10.0 * np.log10(edc / edc[0])
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class NoiseFloor:
+    """Result of the Lundeby et al. (1995) noise-floor analysis of one band.
+
+    Attributes
+    ----------
+    ok : bool
+        False when no decay could be told apart from the noise (then the other figures are
+        only diagnostic and ``reason`` says why).
+    truncation_index : int
+        Crosspoint of the late decay line with the noise, samples from the start of the
+        analysed signal; ``len(h)`` when the IR ends before reaching a noise floor.
+    compensation : float
+        Energy the fitted late decay would carry after the crosspoint, in units of a sum of
+        ``h**2`` over samples: ``p2(t1) / (1 - 10**(B/(10 fs)))`` with the late line
+        ``10 lg p2(t) = A + B t`` (the discrete form of ISO 3382-1 Eq. (3)'s C).
+    noise_power : float
+        Mean ``h**2`` of the noise (an upper bound when ``noise_floor_found`` is False).
+    late_decay_s : float or None
+        Reverberation time of the late fit line, ``-60/B`` in s.
+    peak_to_noise_db : float or None
+        ``10 lg(max h**2 / noise_power)`` (a lower bound when ``noise_floor_found`` is False).
+    noise_floor_found : bool
+        False when the IR is still decaying at its end (e.g. a synthetic or trimmed IR).
+    converged : bool
+        The crosspoint moved by less than one averaging interval within 5 iterations.
+    n_iterations : int
+    reason : str
+        Why ``ok`` is False, else "".
+    late_fit_db : (float, float) or None
+        The late decay line ``(A, B)``: per-sample energy ``10**((A + B t)/10)``, t in s from
+        the start of the analysed signal, B in dB/s.
+    """
+
+    ok: bool
+    truncation_index: int
+    compensation: float
+    noise_power: float
+    late_decay_s: float | None
+    peak_to_noise_db: float | None
+    noise_floor_found: bool
+    converged: bool
+    n_iterations: int
+    reason: str = ""
+    late_fit_db: tuple[float, float] | None = None
+
+
+def _blocks(e: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
+    """Mean of e over consecutive blocks of m samples and the block centres (sample units)."""
+    nb = e.shape[0] // m
+    if nb == 0:
+        return np.array([float(e.mean())]), np.array([e.shape[0] / 2.0])
+    avg = e[: nb * m].reshape(nb, m).mean(axis=1)
+    centres = (np.arange(nb) + 0.5) * m
+    return avg, centres
+
+
+def _linfit(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
+    """Least squares y = a + b x; returns (a, b, r²)."""
+    n = x.shape[0]
+    xm = x.mean()
+    ym = y.mean()
+    dx = x - xm
+    dy = y - ym
+    sxx = float(dx @ dx)
+    syy = float(dy @ dy)
+    sxy = float(dx @ dy)
+    if n < 2 or sxx <= 0:
+        return float(ym), 0.0, 0.0
+    b = sxy / sxx
+    a = float(ym) - b * float(xm)
+    r2 = (sxy * sxy) / (sxx * syy) if syy > 0 else 1.0
+    return a, b, r2
+
+
+def _db(x: np.ndarray | float) -> np.ndarray | float:
+    with np.errstate(divide="ignore"):
+        return 10.0 * np.log10(np.maximum(x, 1e-300))
+
+
+def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations: int = 5
+            ) -> NoiseFloor:
+    """Noise floor, truncation point and tail compensation (Lundeby et al. 1995).
+
+    Steps (Lundeby, Vigran, Bietz & Vorländer, "Uncertainties of measurements in room
+    acoustics", Acustica 81 (1995) 344–355):
+
+    1. average ``h**2`` in intervals of ``interval_s`` (10–50 ms in the paper);
+    2. first noise estimate from the last 10 % of the IR;
+    3. regression from the peak interval to the first interval 10 dB above the noise;
+    4. preliminary crosspoint of that line with the noise;
+    5. new interval length: 5 intervals per 10 dB of decay (paper: 3–10);
+    6. average again;
+    7. noise from the part starting 10 dB of decay after the crosspoint (at least the last 10 %);
+    8. late decay fitted over up to 20 dB, starting 10 dB above the noise (paper: 10–20 dB
+       starting 5–10 dB above);
+    9. new crosspoint; repeat 7–9 until it moves by less than one interval (at most
+       ``max_iterations`` times).
+
+    When the last 10 % of the IR still decays at more than half the early rate, there is no
+    noise floor in the file: the truncation point is the end and the compensation extrapolates
+    the late decay fitted over the last 20 dB.
+
+    Parameters
+    ----------
+    h : ndarray, shape (n,)
+        Band-filtered IR from its onset.
+    fs : int, > 0, Hz
+
+    Returns
+    -------
+    NoiseFloor
+    """
+    h = check_signal(h, "h", ndim=(1,))
+    fs = check_fs(fs)
+    e = h * h
+    n = e.shape[0]
+    peak_e = float(e.max())
+    if not (peak_e > 0):
+        return NoiseFloor(False, n, 0.0, 0.0, None, None, False, False, 0,
+                          "the band holds no energy")
+    m0 = max(1, int(round(interval_s * fs)))
+    tail_start = int(0.9 * n)
+    noise = float(e[tail_start:].mean())
+    if n < 20 * m0:
+        m0 = max(1, n // 20)
+    avg, centres = _blocks(e, m0)
+    lvl = _db(avg)
+    ip = int(np.argmax(avg))
+    noise_db = float(_db(noise))
+    if lvl[ip] - noise_db < 10.0:
+        return NoiseFloor(False, n, 0.0, noise, None, float(_db(peak_e / noise)), True, False,
+                          0, f"the band's decay rises only {lvl[ip] - noise_db:.0f} dB above "
+                             "its noise")
+    # 3. early regression from the peak to 10 dB above the noise
+    below = np.nonzero(lvl[ip:] < noise_db + 10.0)[0]
+    i_end = ip + (int(below[0]) if below.size else lvl.shape[0] - ip)
+    if i_end - ip < 2:
+        i_end = min(lvl.shape[0], ip + 2)
+    a, b, _ = _linfit(centres[ip:i_end] / fs, lvl[ip:i_end])
+    if not (b < 0):
+        return NoiseFloor(False, n, 0.0, noise, None, float(_db(peak_e / noise)), True, False,
+                          0, "the band does not decay")
+
+    # Is there a noise floor at all? Compare the tail's slope with the early slope.
+    tail_blocks = centres >= tail_start
+    if np.count_nonzero(tail_blocks) >= 3:
+        _, b_tail, _ = _linfit(centres[tail_blocks] / fs, lvl[tail_blocks])
+        tail_drop_db = -b_tail * (n - tail_start) / fs
+    else:
+        b_tail, tail_drop_db = 0.0, 0.0
+    if b_tail < 0.5 * b and tail_drop_db > 3.0:
+        # Still decaying at the end: no floor. Extrapolate the last 20 dB of the decay.
+        end_db = float(lvl[-1])
+        sel = (np.arange(lvl.shape[0]) >= ip) & (lvl <= end_db + 20.0)
+        a2, b2, _ = _linfit(centres[sel] / fs, lvl[sel]) if np.count_nonzero(sel) >= 3 else (a, b, 0)
+        if not (b2 < 0):
+            a2, b2 = a, b
+        comp = _tail_sum(a2, b2, n, fs)
+        return NoiseFloor(True, n, comp, noise, -60.0 / b2, float(_db(peak_e / noise)), False,
+                          True, 0, "", (float(a2), float(b2)))
+
+    tc = (noise_db - a) / b  # s
+    m = m0
+    converged = False
+    it = 0
+    a_late, b_late = a, b
+    for it in range(1, max_iterations + 1):  # noqa: B007 (reported after the loop)
+        # 5./6. new interval: 5 per 10 dB of decay
+        m = int(round(10.0 / -b_late / 5.0 * fs))
+        m = min(max(m, max(1, int(0.001 * fs))), max(1, n // 10))
+        avg, centres = _blocks(e, m)
+        lvl = _db(avg)
+        # 7. noise from 10 dB of decay after the crosspoint, at least the last 10 %
+        start = int(round((tc + 10.0 / -b_late) * fs))
+        start = min(max(start, 0), tail_start)
+        noise = float(e[start:].mean())
+        noise_db = float(_db(noise))
+        # 8. late decay: up to 20 dB starting 10 dB above the noise
+        ip = int(np.argmax(avg))
+        lo_db = noise_db + 10.0
+        hi_db = min(lo_db + 20.0, float(lvl[ip]))
+        idx = np.arange(lvl.shape[0])
+        sel = (idx >= ip) & (lvl >= lo_db) & (lvl <= hi_db) & (centres <= max(tc * fs, 0) + m)
+        if np.count_nonzero(sel) < 2 or hi_db - lo_db < 3.0:
+            # Too little decay above the noise for a late fit: keep the previous line.
+            break
+        # fit the decay itself: the blocks' mean noise power removed
+        a_new, b_new, _ = _linfit(centres[sel] / fs, _db(avg[sel] - noise))
+        if not (b_new < 0):
+            break
+        a_late, b_late = a_new, b_new
+        tc_new = (noise_db - a_late) / b_late
+        moved = abs(tc_new - tc)
+        tc = tc_new
+        if moved * fs < m:
+            converged = True
+            break
+
+    n1 = int(round(tc * fs))
+    n1 = min(max(n1, 1), n)
+    comp = _tail_sum(a_late, b_late, n1, fs)
+    return NoiseFloor(True, n1, comp, noise, -60.0 / b_late, float(_db(peak_e / noise)), True,
+                      converged, it, "", (float(a_late), float(b_late)))
+
+
+def _tail_sum(a_db: float, b_db_per_s: float, n1: int, fs: int) -> float:
+    """Sum over n >= n1 of 10**((a + b n/fs)/10): the energy of the extrapolated late decay."""
+    r = 10.0 ** (b_db_per_s / (10.0 * fs))
+    return float(10.0 ** ((a_db + b_db_per_s * n1 / fs) / 10.0) / (1.0 - r))
+
+
+def fit_decay(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
+              end_db: float | None = None) -> tuple[float, float] | None:
+    """Least-squares decay fit of a Schroeder curve between two levels.
+
+    Uses every sample from the first at or below ``hi_db`` to the last before the curve falls
+    below ``lo_db`` (ISO 3382-1 A.2.2 / ISO 3382-2 clause 6).
+
+    Parameters
+    ----------
+    curve_db : ndarray
+        Schroeder curve in dB (0 dB at its start).
+    fs : int, Hz
+    hi_db, lo_db : float
+        Fit range, e.g. -5 and -35 for T30.
+    end_db : float, optional
+        Level of the curve just after its last sample (for a truncated, compensated curve:
+        ``10 lg(C/E0)``). When the curve itself stays above ``lo_db`` but ``end_db <= lo_db``,
+        the range is complete up to the last sample.
+
+    Returns
+    -------
+    (t_s, r2) or None
+        ``t_s = -60/slope`` (s) and the regression's r²; None when the curve does not reach
+        ``lo_db`` or fewer than 3 samples fall in the range.
+    """
+    L = np.asarray(curve_db)
+    i0 = int(np.argmax(L <= hi_db))
+    if not L[i0] <= hi_db:
+        return None
+    below = L[i0:] < lo_db
+    if below.any():
+        i1 = i0 + int(np.argmax(below))
+    elif end_db is not None and end_db <= lo_db + 1e-9:
+        i1 = L.shape[0]
+    else:
+        return None
+    if i1 - i0 < 3:
+        return None
+    x = np.arange(i0, i1, dtype=np.float64) / fs
+    _, b, r2 = _linfit(x, L[i0:i1])
+    if not (b < 0):
+        return None
+    return -60.0 / b, r2
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class DecayFigures:
+    """Decay figures of one band (or the broadband IR).
+
+    Every time is in seconds and is ``None`` when it cannot be measured honestly; ``flags``
+    then says why, one sentence per problem.
+
+    Attributes
+    ----------
+    edt_s, t20_s, t30_s : float or None
+        Early decay time and reverberation times (ISO 3382-1 A.2.2, ISO 3382-2 clause 6).
+    peak_to_noise_db : float or None
+        Band IR peak energy over the noise's mean energy (lower bound if no floor was found).
+    decay_range_db : float or None
+        Decay above the noise: the (compensated) Schroeder level at the truncation point,
+        negated; the quantity the dynamic-range rules compare against.
+    xi_edt_permille, xi_t20_permille, xi_t30_permille : float or None
+        Non-linearity ξ = 1000 (1 − r²) of each regression (ISO 3382-2 Annex B).
+    curvature_percent : float or None
+        C = 100 (T30/T20 − 1) (ISO 3382-2 Annex B).
+    truncation_s : float
+        Lundeby crosspoint, s after the onset.
+    noise_floor_found : bool
+    flags : tuple of str
+    edc_db : ndarray
+        The compensated Schroeder curve from the onset to the truncation point (read-only).
+    fs : int
+    """
+
+    edt_s: float | None
+    t20_s: float | None
+    t30_s: float | None
+    peak_to_noise_db: float | None
+    decay_range_db: float | None
+    xi_edt_permille: float | None
+    xi_t20_permille: float | None
+    xi_t30_permille: float | None
+    curvature_percent: float | None
+    truncation_s: float
+    noise_floor_found: bool
+    flags: tuple[str, ...]
+    edc_db: np.ndarray = field(repr=False)
+    fs: int
+
+    def __post_init__(self) -> None:
+        self.edc_db.setflags(write=False)
+
+
+def analyze_decay(h_band: np.ndarray, fs: int, *, onset: int | None = None,
+                  bandwidth_hz: float | None = None,
+                  filter_mode: Literal["causal", "reversed"] = "reversed",
+                  label: str = "") -> DecayFigures:
+    """EDT, T20, T30 and their validity for one band-filtered impulse response.
+
+    Parameters
+    ----------
+    h_band : ndarray, shape (n,)
+        Band-filtered IR (whole signal; the analysis starts at ``onset``).
+    fs : int, > 0, Hz
+    onset : int, optional
+        Start index, normally :func:`onset_index` of the broadband IR (ISO 3382-1 A.3.4);
+        default: the onset of ``h_band`` itself.
+    bandwidth_hz : float, optional
+        Bandwidth of the band filter for the B·T check (ISO 3382-2 7.3); None skips the check
+        (broadband).
+    filter_mode : {"reversed", "causal"}
+        How ``h_band`` was filtered: sets the B·T limit to 4 or 16.
+    label : str
+        Band name used in flags (e.g. "125 Hz").
+
+    Returns
+    -------
+    DecayFigures
+    """
+    h = check_signal(h_band, "h_band", ndim=(1,))
+    fs = check_fs(fs)
+    check_choice(filter_mode, "filter_mode", ("causal", "reversed"))
+    i0 = onset_index(h, fs) if onset is None else int(onset)
+    if not 0 <= i0 < h.shape[0] - 1:
+        raise ParameterError(f"onset={onset} is outside the signal of {h.shape[0]} samples")
+    seg = h[i0:]
+    where = f"{label}: " if label else ""
+    nf = lundeby(seg, fs)
+    flags: list[str] = []
+    empty = np.zeros(0)
+    if not nf.ok:
+        flags.append(f"{where}no decay can be measured: {nf.reason}")
+        return DecayFigures(None, None, None, nf.peak_to_noise_db, None, None, None, None, None,
+                            nf.truncation_index / fs, nf.noise_floor_found, tuple(flags),
+                            empty, fs)
+    noise_sub = nf.noise_power if nf.noise_floor_found else 0.0
+    curve = schroeder(seg, stop_index=nf.truncation_index, compensation=nf.compensation,
+                      noise_power=noise_sub)
+    e0 = (float(np.sum(seg[: nf.truncation_index] ** 2)) - noise_sub * nf.truncation_index
+          + nf.compensation)
+    if nf.compensation > 0:
+        decay_range = -10.0 * math.log10(nf.compensation / e0)
+    else:
+        decay_range = float(-curve[-1]) if np.isfinite(curve[-1]) else 300.0
+    if not nf.converged:
+        flags.append(f"{where}the noise-floor search (Lundeby) did not converge; the "
+                     "truncation point may be off")
+    values: dict[str, float | None] = {}
+    xis: dict[str, float | None] = {}
+    for key, (hi_db, lo_db) in FIT_RANGES_DB.items():
+        need = REQUIRED_RANGE_DB[key]
+        name = _NAMES[key]
+        values[key] = None
+        xis[key] = None
+        if decay_range < need:
+            flags.append(f"{where}{name} needs {need:.0f} dB of decay above the noise, this "
+                         f"band has {decay_range:.0f} dB")
+            continue
+        fit = fit_decay(curve, fs, hi_db, lo_db, end_db=-decay_range)
+        if fit is None:
+            flags.append(f"{where}{name}: the decay curve does not reach {lo_db:.0f} dB "
+                         "before the truncation point")
+            continue
+        t_s, r2 = fit
+        if bandwidth_hz is not None:
+            bt = bandwidth_hz * t_s
+            lim = BT_MIN[filter_mode]
+            if not bt > lim:
+                flags.append(
+                    f"{where}{name} of {t_s:.3f} s is too short for this band's filter: "
+                    f"B·T = {bt:.1f}, needs > {lim:g} (ISO 3382-2 7.3, {filter_mode} "
+                    "filtering); the filter's own decay would be measured")
+                continue
+        values[key] = t_s
+        xis[key] = 1000.0 * (1.0 - r2)
+    curvature = None
+    if values["t20"] is not None and values["t30"] is not None:
+        curvature = 100.0 * (values["t30"] / values["t20"] - 1.0)
+        if abs(curvature) > CURVATURE_LIMIT_PERCENT:
+            flags.append(
+                f"{where}the decay is not a single exponential: curvature C = "
+                f"{curvature:.0f} % (ISO 3382-2 Annex B: above 10 % the decay is suspect); "
+                "a double slope (coupled spaces) makes T20 and T30 describe different parts")
+    for key in ("t30", "t20"):
+        xi = xis[key]
+        if xi is not None:
+            if xi > XI_LIMIT_PERMILLE:
+                flags.append(
+                    f"{where}the decay curve is not straight over the {_NAMES[key]} range: "
+                    f"ξ = {xi:.0f} ‰ (ISO 3382-2 Annex B: 0–5 ‰ is typical)")
+            break
+    return DecayFigures(
+        edt_s=values["edt"], t20_s=values["t20"], t30_s=values["t30"],
+        peak_to_noise_db=nf.peak_to_noise_db, decay_range_db=decay_range,
+        xi_edt_permille=xis["edt"], xi_t20_permille=xis["t20"], xi_t30_permille=xis["t30"],
+        curvature_percent=curvature, truncation_s=nf.truncation_index / fs,
+        noise_floor_found=nf.noise_floor_found, flags=tuple(flags),
+        edc_db=np.asarray(curve, dtype=np.float64), fs=fs)

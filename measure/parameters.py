@@ -1,0 +1,627 @@
+"""ISO 3382-1 room figures of an impulse response: the per-band table and the single numbers.
+
+:func:`analyze_ir` is the one call: it takes a broadband IR and returns :class:`RoomFigures`
+with, per band and for the broadband IR,
+
+* EDT, T20, T30 (:mod:`measure.decay`, time-reversed band filtering) with the measurement
+  uncertainty of T20 and T30 from bandwidth and decay time (ISO 3382-2:2008 Annex A);
+* C50, C80, D50, centre time Ts (ISO 3382-1:2009 A.2.3–A.2.4) and the direct-to-reverberant
+  ratio, from causally filtered bands;
+* the peak-to-noise ratio and flags saying why a figure is missing;
+
+plus the single-number averages over the 500 Hz and 1 kHz octaves (ISO 3382-1:2009 Table A.1)
+and the STI (:mod:`measure.intelligibility`). ``RoomFigures.to_dict()`` is the JSON scripting
+contract of ``measure analyze --json``.
+
+Energy sums
+-----------
+All sums start at the ISO 3382-1 onset of the broadband IR. In a band the start is moved later
+by the band filter's group delay at mid-band, so that the 50/80 ms split falls at the same
+acoustic time in every band (a causal filter delays the whole band response by about that
+much; without the shift C80 in the 250 Hz octave would be biased by about 0.4 dB for
+T = 1.2 s — derived from dC80/dt). The late sums end at the band's Lundeby crosspoint, the mean
+noise power is subtracted and the fitted exponential tail is added analytically, exactly as for
+the decay curve, so background noise in the IR does not lower C80 or raise Ts.
+
+Direct-to-reverberant ratio
+---------------------------
+The direct sound is the broadband IR up to 2.5 ms after the direct-sound peak (common practice;
+a 0.5 ms half-Hann taper ends the window). The window is cut on the broadband IR and the two
+parts are filtered separately (filtering is linear), so the band DRR is not blurred by the band
+filter's ringing, which at low frequencies lasts far longer than 2.5 ms.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+import numpy as np
+
+from measure._validate import check_fs, check_signal
+from measure.bands import Band, band_filter_sos, filter_bands, filter_order, make_bands
+from measure.decay import DecayFigures, analyze_decay, lundeby, onset_index
+from measure.errors import ParameterError
+
+__all__ = [
+    "JND_EDT_RELATIVE",
+    "JND_T_RELATIVE",
+    "JND_C80_DB",
+    "JND_C50_DB",
+    "JND_D50",
+    "JND_TS_S",
+    "JND_G_DB",
+    "DIRECT_WINDOW_S",
+    "CONTRACT_KEYS",
+    "t20_uncertainty_s",
+    "t30_uncertainty_s",
+    "EnergyFigures",
+    "energy_figures",
+    "BandFigures",
+    "SingleNumbers",
+    "RoomFigures",
+    "analyze_ir",
+]
+
+# Just-noticeable differences, ISO 3382-1:2009 Table A.1.
+#: EDT: 5 % relative (ISO 3382-1 Table A.1).
+JND_EDT_RELATIVE: float = 0.05
+#: T20/T30: no entry of their own in Table A.1; the 5 % of EDT is the usual convention.
+JND_T_RELATIVE: float = 0.05
+#: C80: 1 dB (ISO 3382-1 Table A.1); C50 borrows it by convention.
+JND_C80_DB: float = 1.0
+JND_C50_DB: float = 1.0
+#: D50: 0.05 (ISO 3382-1 Table A.1).
+JND_D50: float = 0.05
+#: Ts: 10 ms (ISO 3382-1 Table A.1).
+JND_TS_S: float = 0.010
+#: G: 1 dB (ISO 3382-1 Table A.1).
+JND_G_DB: float = 1.0
+
+#: Length of the direct sound after its peak for the DRR (common practice).
+DIRECT_WINDOW_S: float = 0.0025
+_DIRECT_TAPER_S = 0.0005
+
+#: Keys of every band object (and the broadband object) in the JSON contract.
+CONTRACT_KEYS: tuple[str, ...] = (
+    "center_hz", "label", "edt_s", "t20_s", "t30_s", "c50_db", "c80_db", "d50", "ts_s",
+    "drr_db", "peak_to_noise_db", "flags")
+
+# Integrated-impulse-response method counted as an ensemble of n = 10 decays, one position
+# (ISO 3382-2:2008 Annex A, from memory; the spread of T20/T30 over 12 noise realisations in
+# tests/test_parameters.py agrees with these formulas within 30 %).
+_N_DECAYS = 10
+_N_POSITIONS = 1
+
+
+def t20_uncertainty_s(t20_s: float, bandwidth_hz: float, *, n_decays: int = _N_DECAYS,
+                      n_positions: int = _N_POSITIONS) -> float:
+    """Standard uncertainty of T20 (ISO 3382-2:2008 Annex A, formula from memory).
+
+    ``σ(T20) = 0.88 T20 √((1 + 1.90/n) / (N B T20))`` with B the filter bandwidth in Hz, n the
+    number of decays averaged (10 for the integrated impulse response) and N the positions.
+    """
+    return 0.88 * t20_s * math.sqrt((1.0 + 1.90 / n_decays) / (n_positions * bandwidth_hz * t20_s))
+
+
+def t30_uncertainty_s(t30_s: float, bandwidth_hz: float, *, n_decays: int = _N_DECAYS,
+                      n_positions: int = _N_POSITIONS) -> float:
+    """Standard uncertainty of T30 (ISO 3382-2:2008 Annex A, formula from memory).
+
+    ``σ(T30) = 0.55 T30 √((1 + 1.52/n) / (N B T30))``; see :func:`t20_uncertainty_s`.
+    """
+    return 0.55 * t30_s * math.sqrt((1.0 + 1.52 / n_decays) / (n_positions * bandwidth_hz * t30_s))
+
+
+@functools.lru_cache(maxsize=512)
+def _filter_timing(kind: str, index: int, fs: int) -> tuple[float, float]:
+    """(group delay at mid-band, 5–95 % energy spread of the impulse response), seconds."""
+    from scipy.signal import sosfilt
+
+    from measure.bands import _make_band
+
+    band = _make_band(kind, index)
+    sos = np.array(band_filter_sos(band, fs))
+    # group delay: -dφ/dω at fm by a central difference of the unwrapped phase
+    f = band.center_hz * np.array([1 - 1e-4, 1 + 1e-4])
+    z1 = np.exp(-2j * np.pi * f / fs)
+    hf = np.prod((sos[:, 0:1] + sos[:, 1:2] * z1 + sos[:, 2:3] * z1 * z1)
+                 / (sos[:, 3:4] + sos[:, 4:5] * z1 + sos[:, 5:6] * z1 * z1), axis=0)
+    dphi = np.angle(hf[1] / hf[0])
+    gd = -dphi / (2 * np.pi * (f[1] - f[0]))
+    n = int(min(4 * fs, max(fs * 0.05, 40 * fs / band.bandwidth_hz)))
+    imp = np.zeros(n)
+    imp[0] = 1.0
+    y = sosfilt(sos, imp)
+    c = np.cumsum(y * y)
+    c /= c[-1]
+    spread = (np.searchsorted(c, 0.95) - np.searchsorted(c, 0.05)) / fs
+    return float(gd), float(spread)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class EnergyFigures:
+    """Energy parameters of one band (ISO 3382-1:2009 A.2.3–A.2.4) and the DRR.
+
+    Attributes
+    ----------
+    c50_db, c80_db : float or None
+        Clarity, 10 lg(E(0…te)/E(te…∞)), te = 50 / 80 ms.
+    d50 : float or None
+        Definition, E(0…50 ms)/E(0…∞).
+    ts_s : float or None
+        Centre time Σ t h² / Σ h², s.
+    drr_db : float or None
+        Direct-to-reverberant ratio, dB (direct: up to 2.5 ms after the direct peak).
+    start_index : int
+        Sample where the sums start (onset plus the band filter's group delay).
+    flags : tuple of str
+    """
+
+    c50_db: float | None
+    c80_db: float | None
+    d50: float | None
+    ts_s: float | None
+    drr_db: float | None
+    start_index: int
+    flags: tuple[str, ...] = ()
+
+
+def _tail_energy_fn(e: np.ndarray, n1: int, a_db: float | None, b_db: float | None, fs: int,
+                    comp: float):
+    """Energy from sample k to infinity: measured sum to n1, then the fitted exponential."""
+    csum = np.concatenate([np.cumsum(e[:n1][::-1])[::-1], [0.0]])
+    r = 10.0 ** (b_db / (10.0 * fs)) if b_db is not None else 0.0
+
+    def tail(k: int) -> float:
+        if k < n1:
+            return float(csum[k]) + comp
+        if a_db is None or b_db is None:
+            return 0.0
+        return float(10.0 ** ((a_db + b_db * k / fs) / 10.0) / (1.0 - r))
+
+    return tail
+
+
+def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray | None = None,
+                   label: str = "") -> EnergyFigures:
+    """C50, C80, D50, Ts (and DRR when the direct part is given) of one filtered IR.
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+        Causally band-filtered IR (or the broadband IR).
+    fs : int, > 0, Hz
+    start : int
+        First sample of the sums: the broadband onset, plus the band filter's group delay.
+    y_direct : ndarray, shape (m,), optional
+        The direct-sound window of the broadband IR passed through the same filter (m <= n);
+        the DRR is ``Σ y_direct² / Σ (y − y_direct)²`` with the reverberant sum noise-corrected
+        and tail-compensated like the others.
+    label : str
+        Band name for flags.
+
+    Notes
+    -----
+    ISO 3382-1:2009 A.2.3–A.2.4: ``C_te = 10 lg(∫_0^te p² / ∫_te^∞ p²)``,
+    ``D50 = ∫_0^0.05 p² / ∫_0^∞ p²``, ``Ts = ∫ t p² / ∫ p²``. Sums split at sample
+    ``round(te·fs)`` after ``start``.
+    """
+    y = check_signal(y, "y", ndim=(1,))
+    fs = check_fs(fs)
+    where = f"{label}: " if label else ""
+    seg = y[start:]
+    nf = lundeby(seg, fs)
+    if not nf.ok:
+        msg = f"{where}C50, C80, D50, Ts and DRR cannot be measured: {nf.reason}"
+        return EnergyFigures(None, None, None, None, None, start, (msg,))
+    e = seg * seg
+    noise = nf.noise_power if nf.noise_floor_found else 0.0
+    if noise:
+        e = e - noise
+    n1 = nf.truncation_index
+    a_db, b_db = nf.late_fit_db if nf.late_fit_db is not None else (None, None)
+    tail = _tail_energy_fn(e, n1, a_db, b_db, fs, nf.compensation)
+    total = tail(0)
+    flags: list[str] = []
+    if not (total > 0):
+        return EnergyFigures(None, None, None, None, None, start,
+                             (f"{where}no energy left after removing the noise",))
+    out: dict[str, float | None] = {}
+    for te_s, key in ((0.050, "c50_db"), (0.080, "c80_db")):
+        k = int(round(te_s * fs))
+        late = tail(k)
+        early = total - late
+        out[key] = 10.0 * math.log10(early / late) if early > 0 and late > 0 else None
+        if out[key] is None:
+            flags.append(f"{where}{key[:3].upper()} undefined: no energy on one side of "
+                         f"{te_s * 1000:.0f} ms")
+    k50 = int(round(0.050 * fs))
+    d50 = (total - tail(k50)) / total
+    # Ts: Σ t e over the measured part plus the analytic tail Σ t a r^(n-n1)
+    t = np.arange(n1) / fs
+    mom = float(t @ e[:n1])
+    if a_db is not None and b_db is not None:
+        r = 10.0 ** (b_db / (10.0 * fs))
+        a1 = 10.0 ** ((a_db + b_db * n1 / fs) / 10.0)
+        mom += a1 * ((n1 / fs) / (1.0 - r) + (r / (1.0 - r) ** 2) / fs)
+    ts = mom / total
+    drr = None
+    if y_direct is not None:
+        m = min(y_direct.shape[0], y.shape[0])
+        e_d = float(np.sum(y_direct[:m] ** 2))
+        # reverberant energy: everything minus the direct part, from sample 0 to the
+        # crosspoint (noise-corrected), plus the tail
+        stop = start + n1
+        rest = y[:stop].copy()
+        mm = min(m, stop)
+        rest[:mm] -= y_direct[:mm]
+        e_r = float(np.sum(rest * rest)) - noise * stop + nf.compensation
+        if e_d > 0 and e_r > 0:
+            drr = 10.0 * math.log10(e_d / e_r)
+        else:
+            flags.append(f"{where}DRR undefined: no reverberant energy above the noise")
+    return EnergyFigures(out["c50_db"], out["c80_db"], float(d50), float(ts), drr, start,
+                         tuple(flags))
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class BandFigures:
+    """All figures of one band (``band`` is None for the broadband IR).
+
+    The contract fields (see :data:`CONTRACT_KEYS`) are ``None`` when not honestly measurable;
+    ``flags`` says why. ``decay`` and ``energy`` hold the details (ξ, curvature, decay curve).
+    """
+
+    band: Band | None
+    edt_s: float | None
+    t20_s: float | None
+    t30_s: float | None
+    c50_db: float | None
+    c80_db: float | None
+    d50: float | None
+    ts_s: float | None
+    drr_db: float | None
+    peak_to_noise_db: float | None
+    flags: tuple[str, ...]
+    t20_uncertainty_s: float | None
+    t30_uncertainty_s: float | None
+    decay: DecayFigures = field(repr=False)
+    energy: EnergyFigures = field(repr=False)
+    filter_order: int | None = None
+
+    @property
+    def label(self) -> str:
+        return self.band.label if self.band is not None else "broadband"
+
+    def to_dict(self) -> dict[str, Any]:
+        """The contract object: exactly :data:`CONTRACT_KEYS`."""
+        return {
+            "center_hz": None if self.band is None else self.band.center_hz,
+            "label": self.label,
+            "edt_s": self.edt_s,
+            "t20_s": self.t20_s,
+            "t30_s": self.t30_s,
+            "c50_db": self.c50_db,
+            "c80_db": self.c80_db,
+            "d50": self.d50,
+            "ts_s": self.ts_s,
+            "drr_db": self.drr_db,
+            "peak_to_noise_db": self.peak_to_noise_db,
+            "flags": list(self.flags),
+        }
+
+    def details(self) -> dict[str, Any]:
+        """Extra figures for the report (outside the contract objects)."""
+        d = self.decay
+        return {
+            "label": self.label,
+            "f_lo_hz": None if self.band is None else self.band.f_lo_hz,
+            "f_hi_hz": None if self.band is None else self.band.f_hi_hz,
+            "filter_order": self.filter_order,
+            "t20_uncertainty_s": self.t20_uncertainty_s,
+            "t30_uncertainty_s": self.t30_uncertainty_s,
+            "xi_edt_permille": d.xi_edt_permille,
+            "xi_t20_permille": d.xi_t20_permille,
+            "xi_t30_permille": d.xi_t30_permille,
+            "curvature_percent": d.curvature_percent,
+            "decay_range_db": d.decay_range_db,
+            "truncation_s": d.truncation_s,
+            "noise_floor_found": d.noise_floor_found,
+        }
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class SingleNumbers:
+    """Single-number averages over the 500 Hz and 1 kHz octaves (ISO 3382-1:2009 Table A.1).
+
+    Each is the arithmetic mean of the two octave values, None when either is missing.
+    ``t_mid_s`` is T30 averaged when both T30 values exist, else T20 (``t_mid_from`` says
+    which).
+    """
+
+    t_mid_s: float | None
+    t_mid_from: str | None
+    t20_mid_s: float | None
+    t30_mid_s: float | None
+    edt_mid_s: float | None
+    c50_mid_db: float | None
+    c80_mid_db: float | None
+    d50_mid: float | None
+    ts_mid_s: float | None
+    flags: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "t_mid_s": self.t_mid_s,
+            "t_mid_from": self.t_mid_from,
+            "t20_mid_s": self.t20_mid_s,
+            "t30_mid_s": self.t30_mid_s,
+            "edt_mid_s": self.edt_mid_s,
+            "c50_mid_db": self.c50_mid_db,
+            "c80_mid_db": self.c80_mid_db,
+            "d50_mid": self.d50_mid,
+            "ts_mid_s": self.ts_mid_s,
+            "octaves": ["500", "1k"],
+            "flags": list(self.flags),
+        }
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class RoomFigures:
+    """Everything :func:`analyze_ir` found.
+
+    Attributes
+    ----------
+    fs : int
+    kind : str
+        "octave", "third" or "custom".
+    bands : tuple of BandFigures
+    broadband : BandFigures
+    single_numbers : SingleNumbers
+    sti : StiResult or None
+        None when it could not be computed (``flags`` says why).
+    onset_index : int
+        ISO 3382-1 onset of the broadband IR.
+    flags : tuple of str
+        Problems not tied to one band.
+    """
+
+    fs: int
+    kind: str
+    bands: tuple[BandFigures, ...]
+    broadband: BandFigures
+    single_numbers: SingleNumbers
+    sti: Any
+    onset_index: int
+    flags: tuple[str, ...] = ()
+
+    def band(self, label: str) -> BandFigures:
+        """The figures of the band with this nominal label ("1k")."""
+        for b in self.bands:
+            if b.label == label:
+                return b
+        raise KeyError(f"no band labelled {label!r}; have {[b.label for b in self.bands]}")
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON scripting contract of ``measure analyze --json`` (plus ``details``)."""
+        return {
+            "sample_rate": self.fs,
+            "bands": [b.to_dict() for b in self.bands],
+            "broadband": self.broadband.to_dict(),
+            "single_numbers": self.single_numbers.to_dict(),
+            "sti": None if self.sti is None else self.sti.sti,
+            "details": {
+                "band_kind": self.kind,
+                "onset_s": self.onset_index / self.fs,
+                "filtering": {"decay": "time-reversed (ISO 3382-2 7.3 note)",
+                              "energy": "causal, onset shifted by the filter group delay"},
+                "bands": [b.details() for b in self.bands],
+                "broadband": self.broadband.details(),
+                "sti": None if self.sti is None else self.sti.to_dict(),
+                "flags": list(self.flags),
+            },
+        }
+
+
+def _direct_part(h: np.ndarray, fs: int, onset: int) -> tuple[np.ndarray, int]:
+    """The direct-sound window of the broadband IR (see module notes) and its end index."""
+    search_end = min(h.shape[0], onset + max(1, int(round(0.001 * fs))) + 1)
+    peak = onset + int(np.argmax(np.abs(h[onset:search_end])))
+    end = min(h.shape[0], peak + int(round(DIRECT_WINDOW_S * fs)))
+    n_taper = max(1, int(round(_DIRECT_TAPER_S * fs)))
+    stop = min(h.shape[0], end + n_taper)
+    d = h[:stop].copy()
+    m = stop - end
+    if m > 0:
+        d[end:stop] *= 0.5 * (1.0 + np.cos(np.pi * (np.arange(m) + 1) / (n_taper + 1)))
+    return d, stop
+
+
+def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
+                  y_direct: np.ndarray, fs: int, onset: int) -> BandFigures:
+    if band is None:
+        decay = analyze_decay(y_rev, fs, onset=onset, bandwidth_hz=None, label="broadband")
+        start = onset
+        order = None
+        label = "broadband"
+    else:
+        label = f"{band.label} Hz"
+        decay = analyze_decay(y_rev, fs, onset=onset, bandwidth_hz=band.bandwidth_hz,
+                              filter_mode="reversed", label=label)
+        gd, _ = _filter_timing(band.kind, band.index, fs)
+        start = min(onset + int(round(gd * fs)), y_causal.shape[0] - 2)
+        order = filter_order(band, fs)
+    energy = energy_figures(y_causal, fs, start=start, y_direct=y_direct, label=label)
+    flags = list(decay.flags) + list(energy.flags)
+    if band is not None:
+        _, spread = _filter_timing(band.kind, band.index, fs)
+        if spread > 0.025:
+            flags.append(f"{label}: the band filter spreads a click over {spread * 1000:.0f} ms, "
+                         "comparable to the 50 ms split; C50 and D50 blur here")
+    u20 = u30 = None
+    if band is not None:
+        if decay.t20_s is not None:
+            u20 = t20_uncertainty_s(decay.t20_s, band.bandwidth_hz)
+        if decay.t30_s is not None:
+            u30 = t30_uncertainty_s(decay.t30_s, band.bandwidth_hz)
+    return BandFigures(
+        band=band, edt_s=decay.edt_s, t20_s=decay.t20_s, t30_s=decay.t30_s,
+        c50_db=energy.c50_db, c80_db=energy.c80_db, d50=energy.d50, ts_s=energy.ts_s,
+        drr_db=energy.drr_db, peak_to_noise_db=decay.peak_to_noise_db, flags=tuple(flags),
+        t20_uncertainty_s=u20, t30_uncertainty_s=u30, decay=decay, energy=energy,
+        filter_order=order)
+
+
+def _figures_for(h: np.ndarray, fs: int, bands: tuple[Band, ...], onset: int,
+                 direct: np.ndarray, direct_stop: int) -> list[BandFigures]:
+    if not bands:
+        return []
+    yr = filter_bands(h, fs, bands, mode="reversed")
+    yc = filter_bands(h, fs, bands, mode="causal")
+    # Filter the direct window far enough for the slowest band filter to ring out.
+    b_min = min(b.bandwidth_hz for b in bands)
+    head = min(h.shape[0], direct_stop + int(math.ceil(20.0 * fs / b_min)))
+    d = np.zeros(head)
+    d[: direct.shape[0]] = direct[:head]
+    yd = filter_bands(d, fs, bands, mode="causal")
+    return [_band_figures(b, yr[i], yc[i], yd[i], fs, onset) for i, b in enumerate(bands)]
+
+
+def _mean2(a: float | None, b: float | None) -> float | None:
+    return None if a is None or b is None else 0.5 * (a + b)
+
+
+def _single_numbers(b500: BandFigures | None, b1k: BandFigures | None) -> SingleNumbers:
+    if b500 is None or b1k is None:
+        return SingleNumbers(None, None, None, None, None, None, None, None, None,
+                             ("single numbers need the 500 Hz and 1 kHz octaves, which this "
+                              "sample rate or range does not give",))
+    vals = {}
+    flags = []
+    for key in ("t20_s", "t30_s", "edt_s", "c50_db", "c80_db", "d50", "ts_s"):
+        vals[key] = _mean2(getattr(b500, key), getattr(b1k, key))
+        if vals[key] is None:
+            flags.append(f"{key.split('_')[0].upper()} average missing: the 500 Hz or 1 kHz "
+                         "value is null (see its band's flags)")
+    if vals["t30_s"] is not None:
+        t_mid, t_from = vals["t30_s"], "T30"
+    elif vals["t20_s"] is not None:
+        t_mid, t_from = vals["t20_s"], "T20"
+    else:
+        t_mid, t_from = None, None
+    return SingleNumbers(t_mid, t_from, vals["t20_s"], vals["t30_s"], vals["edt_s"],
+                         vals["c50_db"], vals["c80_db"], vals["d50"], vals["ts_s"],
+                         tuple(flags))
+
+
+def analyze_ir(h: np.ndarray, fs: int, *,
+               bands: Literal["octave", "third"] | tuple[Band, ...] = "octave",
+               f_lo_hz: float | None = None, f_hi_hz: float | None = None,
+               snr_db: float | np.ndarray | None = None,
+               speech_spl_db: float | np.ndarray | None = None,
+               noise_spl_db: float | np.ndarray | None = None,
+               sti: bool = True) -> RoomFigures:
+    """ISO 3382-1 figures per band, broadband, single numbers and STI of one impulse response.
+
+    Parameters
+    ----------
+    h : ndarray, shape (n,)
+        Broadband impulse response (one channel), with some silence before the direct sound
+        and the decay's tail; background noise after the decay is fine (it is found and
+        compensated).
+    fs : int, > 0, Hz
+    bands : {"octave", "third"} or tuple of Band
+        Band set; a tuple from :func:`measure.bands.make_bands` is used as given.
+    f_lo_hz, f_hi_hz : float, optional
+        Nominal range for "octave"/"third" (defaults: 63 Hz–8 kHz / 50 Hz–10 kHz, cut to what
+        ``fs`` allows); not allowed with an explicit tuple.
+    snr_db : float or array_like (7,), optional
+        Speech-to-noise ratio per octave 125 Hz–8 kHz for the STI, when known.
+    speech_spl_db, noise_spl_db : float or array_like (7,), optional
+        Alternatively, the speech and background-noise band levels at the listener, dB SPL;
+        the STI uses their difference. Give both or neither, and not together with ``snr_db``.
+    sti : bool
+        Compute the STI (needs fs of about 32 kHz or more for the 8 kHz octave).
+
+    Returns
+    -------
+    RoomFigures
+
+    Raises
+    ------
+    ParameterError
+        For a malformed IR, an unknown band kind, a range ``fs`` cannot carry, or conflicting
+        noise arguments.
+
+    Examples
+    --------
+    >>> fs = 16000
+    >>> t = np.arange(fs) / fs
+    >>> h = np.random.default_rng(0).standard_normal(fs) * np.exp(-6.9 * t)
+    >>> figs = analyze_ir(h, fs, sti=False)
+    >>> [b.label for b in figs.bands][:3]
+    ['63', '125', '250']
+    """
+    h = check_signal(h, "h", ndim=(1,))
+    fs = check_fs(fs)
+    if isinstance(bands, str):
+        band_set = make_bands(fs, bands, f_lo_hz, f_hi_hz)  # checks the kind
+        kind = bands
+    else:
+        if f_lo_hz is not None or f_hi_hz is not None:
+            raise ParameterError("f_lo_hz/f_hi_hz only apply to bands='octave' or 'third'; "
+                                 "leave them out when passing a tuple of Band")
+        band_set = tuple(bands)
+        if not band_set or not all(isinstance(b, Band) for b in band_set):
+            raise ParameterError("bands must be 'octave', 'third' or a non-empty tuple of Band")
+        kind = "custom"
+    if snr_db is not None and (speech_spl_db is not None or noise_spl_db is not None):
+        raise ParameterError("give either snr_db or speech_spl_db with noise_spl_db, not both")
+    if (speech_spl_db is None) != (noise_spl_db is None):
+        raise ParameterError("the STI noise correction needs both speech_spl_db and "
+                             "noise_spl_db (the speech-to-noise ratio is their difference); "
+                             "give both, or snr_db")
+    if speech_spl_db is not None:
+        snr_db = np.asarray(speech_spl_db, dtype=float) - np.asarray(noise_spl_db, dtype=float)
+    if h.shape[0] < int(0.1 * fs):
+        raise ParameterError(f"the impulse response is only {h.shape[0] / fs * 1000:.0f} ms "
+                             "long; give at least 100 ms (better: the whole decay)")
+    onset = onset_index(h, fs)
+    direct, direct_stop = _direct_part(h, fs, onset)
+    per_band = _figures_for(h, fs, band_set, onset, direct, direct_stop)
+    broadband = _band_figures(None, h, h, direct, fs, onset)
+
+    def find(label: str) -> BandFigures | None:
+        for bf in per_band:
+            if bf.band is not None and bf.band.kind == "octave" and bf.label == label:
+                return bf
+        return None
+
+    b500, b1k = find("500"), find("1k")
+    if b500 is None or b1k is None:
+        try:
+            extra = make_bands(fs, "octave", 500.0, 1000.0)
+        except ParameterError:
+            extra = ()
+        got = _figures_for(h, fs, extra, onset, direct, direct_stop)
+        if len(got) == 2:
+            b500, b1k = got
+    singles = _single_numbers(b500, b1k)
+
+    flags: list[str] = []
+    sti_res = None
+    if sti:
+        from measure.intelligibility import sti_from_ir
+
+        try:
+            sti_res = sti_from_ir(h, fs, onset=onset, snr_db=snr_db)
+        except ParameterError as err:
+            if snr_db is not None and "snr_db" in str(err):
+                raise
+            flags.append(f"STI not computed: {err}")
+    return RoomFigures(fs=fs, kind=kind, bands=tuple(per_band), broadband=broadband,
+                       single_numbers=singles, sti=sti_res, onset_index=onset,
+                       flags=tuple(flags))
