@@ -132,6 +132,11 @@ class Band:
         return _nominal_hz(self.kind, self.index)
 
     @property
+    def name(self) -> str:
+        """Readable name with unit: "125 Hz", "1 kHz", "12.5 kHz"."""
+        return f"{self.label[:-1]} kHz" if self.label.endswith("k") else f"{self.label} Hz"
+
+    @property
     def bandwidth_hz(self) -> float:
         """Bandwidth ``f_hi_hz - f_lo_hz`` in Hz (0.7046·fm octave, 0.2308·fm third)."""
         return self.f_hi_hz - self.f_lo_hz
@@ -330,10 +335,10 @@ def _compliant_design(kind: str, index: int, fs: int) -> tuple[int, np.ndarray] 
 
 def _refusal(band: Band, fs: int) -> str:
     if band.f_hi_hz >= fs / 2.0:
-        return (f"the {band.label} Hz {band.kind} band reaches {band.f_hi_hz:.0f} Hz, above the "
+        return (f"the {band.name} {band.kind} band reaches {band.f_hi_hz:.0f} Hz, above the "
                 f"Nyquist frequency {fs / 2:.0f} Hz at fs={fs}")
     return (f"no Butterworth band-pass of order up to {2 * MAX_ORDER} meets the IEC 61260-1 "
-            f"class 1 limits for the {band.label} Hz {band.kind} band at fs={fs}")
+            f"class 1 limits for the {band.name} {band.kind} band at fs={fs}")
 
 
 def make_bands(fs: int, kind: BandKind = "octave", f_lo_hz: float | None = None,

@@ -248,7 +248,7 @@ def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None) -> tuple[np
             out[k] = mtf_from_band(seg, fs, stop_index=nf.truncation_index, tail_a_db=a,
                                    tail_b_db_per_s=b)
         else:
-            flags.append(f"STI {band.label} Hz band: no decay above the noise "
+            flags.append(f"STI {band.name} band: no decay above the noise "
                          f"({nf.reason}); the whole band IR is used as it is")
             out[k] = mtf_from_band(seg, fs)
     return out, tuple(flags)

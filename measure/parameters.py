@@ -57,6 +57,7 @@ __all__ = [
     "CONTRACT_KEYS",
     "t20_uncertainty_s",
     "t30_uncertainty_s",
+    "filter_group_delay_s",
     "EnergyFigures",
     "energy_figures",
     "BandFigures",
@@ -139,6 +140,14 @@ def _filter_timing(kind: str, index: int, fs: int) -> tuple[float, float]:
     c /= c[-1]
     spread = (np.searchsorted(c, 0.95) - np.searchsorted(c, 0.05)) / fs
     return float(gd), float(spread)
+
+
+def filter_group_delay_s(band: Band, fs: int) -> float:
+    """Group delay of ``band``'s class 1 filter at its mid-band frequency, s.
+
+    The energy sums of a causally filtered band start this much after the broadband onset.
+    """
+    return _filter_timing(band.kind, band.index, check_fs(fs))[0]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -448,7 +457,7 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
         order = None
         label = "broadband"
     else:
-        label = f"{band.label} Hz"
+        label = band.name
         decay = analyze_decay(y_rev, fs, onset=onset, bandwidth_hz=band.bandwidth_hz,
                               filter_mode="reversed", label=label)
         gd, _ = _filter_timing(band.kind, band.index, fs)

@@ -130,7 +130,7 @@ def test_default_ranges_and_fs_limit():
     # At 16 kHz the 8 kHz octave (upper edge 11.2 kHz) is above Nyquist: dropped silently
     # from the default range, refused with a reason when asked for.
     assert make_bands(16000, "octave")[-1].label == "4k"
-    with pytest.raises(ParameterError, match=r"8k Hz octave band reaches 11220 Hz, above the "
+    with pytest.raises(ParameterError, match=r"8 kHz octave band reaches 11220 Hz, above the "
                                               r"Nyquist frequency 8000 Hz"):
         make_bands(16000, "octave", 63, 8000)
 

@@ -145,5 +145,5 @@ def test_bad_inputs():
         sti_from_mtf(np.ones((6, 14)))
     with pytest.raises(ParameterError, match="snr_db"):
         sti_from_ir(np.ones(4800), FS, snr_db=[1.0, 2.0])
-    with pytest.raises(ParameterError, match="8k Hz octave band"):
+    with pytest.raises(ParameterError, match="8 kHz octave band"):
         sti_from_ir(np.random.default_rng(0).standard_normal(16000), 16000)
