@@ -234,3 +234,51 @@ def file_sha256(path: str | os.PathLike[str]) -> str:
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)
     return h.hexdigest()
+
+
+def read_sweep(path: str | os.PathLike[str]):
+    """Read a sweep file and its sidecar, rebuild the sweep and check that the two agree.
+
+    Returns
+    -------
+    measure.sweep.Sweep
+        Rebuilt from the sidecar (float64), so deconvolution uses the exact signal.
+
+    Raises
+    ------
+    AudioFileError
+        If the file or sidecar is missing or malformed, or the samples differ from what the
+        sidecar describes.
+    """
+    from measure.sweep import make_sweep, spec_from_dict
+
+    audio = read_audio(path)
+    side = sidecar_path(path)
+    if not side.exists():
+        raise AudioFileError(
+            f"the sweep sidecar {side} is missing; keep the .json that `measure sweep` wrote "
+            "beside the .wav, or make the sweep again")
+    spec = spec_from_dict(read_json(side), source=str(side))
+    sweep = make_sweep(spec)
+    if audio.fs != spec.fs:
+        raise AudioFileError(
+            f"{path} is at {audio.fs} Hz but its sidecar says {spec.fs} Hz; make the sweep again")
+    played = audio.x[0]
+    if played.size != sweep.program.size or not np.array_equal(
+            played.astype(np.float32), sweep.program.astype(np.float32)):
+        raise AudioFileError(
+            f"the samples of {path} do not match its sidecar {side}; the file was edited or the "
+            "sidecar belongs to another sweep: make the sweep again with `measure sweep`")
+    return sweep
+
+
+def write_ir(path: str | os.PathLike[str], ir, *, sweep, sources: dict[str, Any]) -> tuple[Path, Path]:
+    """Write IR.wav (32-bit float, one channel per recovered channel) and IR.json beside it."""
+    from measure._version import __version__
+    from measure.deconvolve import IR_FORMAT
+
+    wav = write_audio(path, ir.h, ir.fs, subtype="FLOAT")
+    doc = {"format": IR_FORMAT, "tool_version": __version__, **ir.to_dict(),
+           "sweep": sweep.sidecar()["sweep"], "sources": sources}
+    side = write_json(sidecar_path(wav), doc)
+    return wav, side

@@ -26,3 +26,8 @@ def print_json(obj: Any) -> None:
 def info(message: str) -> None:
     """A progress or status line on stderr (stdout is kept for results and JSON)."""
     print(message, file=sys.stderr)
+
+
+def warn(message: str) -> None:
+    """A warning the user should act on, on stderr."""
+    print(f"warning: {message}", file=sys.stderr)

@@ -1,0 +1,86 @@
+"""``measure ir CAPTURE.wav --sweep SWEEP.wav --out IR.wav``: recover impulse responses."""
+
+from __future__ import annotations
+
+import argparse
+
+NAME = "ir"
+HELP = "recover impulse responses from a recording of a sweep"
+DESCRIPTION = """\
+Find every sweep in CAPTURE.wav (any latency, noise or silence before it), remove the clock
+drift between the playing and the recording device, deconvolve, average the sweeps coherently,
+and write IR.wav (32-bit float, one channel per recorded channel) and IR.json with the latency,
+drift, peak-to-noise ratio and harmonic distortion."""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("capture", metavar="CAPTURE.wav", help="the recording")
+    p.add_argument("--sweep", required=True, metavar="SWEEP.wav",
+                   help="the sweep file that was played (its .json must be beside it)")
+    p.add_argument("--out", required=True, metavar="IR.wav", help="impulse response to write")
+    p.add_argument("--channel", type=int, action="append", metavar="N",
+                   help="recording channel to use, 1-based (repeat for several; default: all "
+                        "but the loopback channel)")
+    p.add_argument("--loopback-channel", type=int, metavar="N",
+                   help="recording channel, 1-based, that carries the played signal back "
+                        "(a loopback cable): timing comes from it exactly")
+    p.add_argument("--harmonics", type=int, default=4, metavar="K",
+                   help="harmonic-distortion responses to analyse (orders 2..K+1, default 4)")
+    p.add_argument("--pre", type=float, default=None, metavar="S",
+                   help="seconds kept before the direct sound (default: two periods of the "
+                        "sweep's start frequency, at least 0.005)")
+    p.add_argument("--json", action="store_true", help="print the IR figures as JSON on stdout")
+
+
+def run(args: argparse.Namespace) -> int:
+    from measure import audio_io
+    from measure.cli._common import info, print_json, warn
+    from measure.deconvolve import recover_ir
+    from measure.errors import ParameterError
+
+    if not str(args.out).lower().endswith(".wav"):
+        raise ParameterError(f"--out {args.out!r} must end in .wav; name the IR e.g. ir.wav")
+    sweep = audio_io.read_sweep(args.sweep)
+    cap = audio_io.read_audio(args.capture)
+    if cap.fs != sweep.fs:
+        raise ParameterError(
+            f"the capture is at {cap.fs} Hz but the sweep at {sweep.fs} Hz; record at the "
+            "sweep's rate, or make a sweep at the capture's rate")
+    channels = None if not args.channel else [_zero_based(c, cap.n_channels) for c in args.channel]
+    ref = (None if args.loopback_channel is None
+           else _zero_based(args.loopback_channel, cap.n_channels))
+    ir = recover_ir(cap.x, sweep, channels=channels, reference_channel=ref,
+                    n_harmonics=args.harmonics, pre_s=args.pre)
+    for w in ir.warnings:
+        warn(w)
+    sources = {"capture": str(args.capture), "capture_sha256": audio_io.file_sha256(args.capture),
+               "sweep": str(args.sweep), "sweep_sha256": audio_io.file_sha256(args.sweep)}
+    wav, side = audio_io.write_ir(args.out, ir, sweep=sweep, sources=sources)
+    if args.json:
+        print_json(ir.to_dict())
+    else:
+        print(format_ir_summary(ir))
+    info(f"wrote {wav} and {side}")
+    return 0
+
+
+def _zero_based(channel: int, n_channels: int) -> int:
+    from measure.errors import ParameterError
+
+    if not 1 <= channel <= n_channels:
+        raise ParameterError(
+            f"channel {channel} does not exist: the capture has {n_channels} channel(s); "
+            f"choose one of 1..{n_channels}")
+    return channel - 1
+
+
+def format_ir_summary(ir) -> str:
+    """A few lines on the recovered responses: latency, drift, peak-to-noise, distortion."""
+    lines = [f"sample rate {ir.fs} Hz, {ir.n_averaged} sweep(s) averaged, "
+             f"clock drift {ir.drift_ppm:+.1f} ppm"]
+    for c, lat, pnr, hds in zip(ir.channels, ir.latency_s, ir.peak_to_noise_db, ir.harmonics,
+                                strict=True):
+        dist = ", ".join(f"H{hd.order} {hd.percent:.2f} %" for hd in hds) or "not analysed"
+        lines.append(f"channel {c + 1}: latency {lat * 1000:.2f} ms, peak-to-noise {pnr:.1f} dB, "
+                     f"distortion {dist}")
+    return "\n".join(lines)

@@ -1,0 +1,252 @@
+"""A virtual room and a virtual take: the demo's rooms and the tests' workhorse.
+
+:func:`room_ir` synthesises an impulse response from per-octave reverberation times, a direct
+sound, early reflections and a direct-to-reverberant ratio. The late part is Gaussian noise
+split into octave bands by complementary (zero-phase, partition-of-unity) masks, each band
+shaped by its own exponential energy decay exp(−13.8155·t/T_b), so each band decays at its own
+rate; reflections are band-limited impulses placed exactly (to a fraction of a sample) where
+they are asked for.
+
+:func:`virtual_take` "plays" a sweep file through it the way real equipment would: a
+memoryless loudspeaker nonlinearity, the room, a latency, a recording clock running fast or slow
+(drift), and background noise.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from measure._dsp import fractional_impulse, interpolate
+from measure._validate import check_fs, check_nonnegative, check_positive, check_signal
+from measure.errors import ParameterError
+
+__all__ = ["VirtualRoom", "room_ir", "virtual_take", "DEMO_ROOMS", "OCTAVE_CENTERS_HZ"]
+
+#: Exact base-10 octave mid-band frequencies 63 Hz–8 kHz (IEC 61260-1:2014, 5.2).
+OCTAVE_CENTERS_HZ: tuple[float, ...] = tuple(1000.0 * 10.0 ** (0.3 * k) for k in range(-4, 4))
+DECAY_60DB = 6.0 * math.log(10.0)  # 13.8155: energy decay constant × T for a 60 dB fall
+
+
+@dataclass(frozen=True, slots=True)
+class VirtualRoom:
+    """A synthetic room.
+
+    Parameters
+    ----------
+    name : str
+    band_centers_hz : tuple of float
+        Centres of the bands whose reverberation times are given (ascending).
+    rt_s : tuple of float, > 0, s
+        Reverberation time (60 dB energy fall) in each band.
+    direct_delay_s : float, >= 0, s
+        Arrival of the direct sound (source–receiver distance / speed of sound).
+    drr_db : float, dB
+        Direct-to-reverberant ratio: direct energy over everything after it (reflections and
+        diffuse tail).
+    reflections : tuple of (delay_s, gain)
+        Early reflections: delay after the direct sound (s, > 0) and signed amplitude relative to
+        the direct sound.
+    length_s : float, > 0, s
+        Length of the synthesised response.
+    tail_onset_s : float, >= 0, s
+        Delay after the direct sound at which the diffuse tail starts (a short raised-cosine
+        build-up follows it).
+    """
+
+    name: str
+    band_centers_hz: tuple[float, ...]
+    rt_s: tuple[float, ...]
+    direct_delay_s: float
+    drr_db: float
+    reflections: tuple[tuple[float, float], ...] = ()
+    length_s: float = 2.0
+    tail_onset_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        if len(self.band_centers_hz) != len(self.rt_s) or not self.rt_s:
+            raise ParameterError("give one reverberation time per band centre")
+        if any(b <= a for a, b in zip(self.band_centers_hz, self.band_centers_hz[1:])):
+            raise ParameterError("band centres must ascend")
+        for t in self.rt_s:
+            check_positive(t, "reverberation time", unit="s")
+        check_nonnegative(self.direct_delay_s, "direct delay", unit="s")
+        check_positive(self.length_s, "length", unit="s")
+        check_nonnegative(self.tail_onset_s, "tail onset", unit="s")
+        for d, _g in self.reflections:
+            check_positive(d, "reflection delay", unit="s")
+
+
+def _band_masks(n_fft: int, fs: int, centers_hz: tuple[float, ...]) -> np.ndarray:
+    """Complementary raised-cosine masks on log2 f, one per band, summing to 1 at every bin."""
+    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    lf = np.log2(np.maximum(f, 1e-3))
+    lc = np.log2(np.asarray(centers_hz))
+    masks = np.zeros((lc.size, f.size))
+    for b in range(lc.size):
+        m = np.ones_like(f)
+        if b > 0:  # rising half from the previous centre to this one
+            u = np.clip((lf - lc[b - 1]) / (lc[b] - lc[b - 1]), 0.0, 1.0)
+            m = np.minimum(m, np.sin(0.5 * math.pi * u) ** 2)
+        if b < lc.size - 1:  # falling half to the next centre
+            u = np.clip((lf - lc[b]) / (lc[b + 1] - lc[b]), 0.0, 1.0)
+            m = np.minimum(m, np.cos(0.5 * math.pi * u) ** 2)
+        masks[b] = m
+    return masks
+
+
+def room_ir(room: VirtualRoom, fs: int, *, seed: int = 0) -> np.ndarray:
+    """Synthesise the room's impulse response at ``fs``.
+
+    Returns
+    -------
+    ndarray, (round(length_s·fs),), float64
+        Direct sound of unit amplitude at ``direct_delay_s``, reflections, and the diffuse tail
+        scaled to give ``drr_db``.
+
+    Examples
+    --------
+    >>> r = VirtualRoom("box", (1000.0,), (0.5,), direct_delay_s=0.01, drr_db=0.0, length_s=1.0)
+    >>> h = room_ir(r, 8000)
+    >>> int(np.argmax(np.abs(h)))
+    80
+    """
+    fs = check_fs(fs)
+    n = int(round(room.length_s * fs))
+    t0 = room.direct_delay_s * fs
+    direct = fractional_impulse(n, t0)
+    early = np.zeros(n)
+    for delay_s, gain in room.reflections:
+        pos = t0 + delay_s * fs
+        if pos < n:
+            early += gain * fractional_impulse(n, pos)
+
+    rng = np.random.default_rng(seed)
+    n_fft = 1 << int(math.ceil(math.log2(2 * n)))
+    noise_spec = np.fft.rfft(rng.standard_normal(n_fft))
+    masks = _band_masks(n_fft, fs, room.band_centers_hz)
+    t = (np.arange(n) - t0) / fs  # time after the direct sound
+    onset = room.tail_onset_s
+    build = np.clip((t - onset) / 0.002, 0.0, 1.0)  # 2 ms raised-cosine build-up
+    build = 0.5 - 0.5 * np.cos(math.pi * build)
+    tail = np.zeros(n)
+    for mask, rt in zip(masks, room.rt_s):
+        band_noise = np.fft.irfft(noise_spec * mask, n_fft)[:n]
+        env = np.exp(-0.5 * DECAY_60DB * np.maximum(t, 0.0) / rt)  # amplitude: half the energy rate
+        tail += band_noise * env
+    tail *= build
+
+    e_direct = float(np.sum(direct**2))
+    e_early = float(np.sum(early**2))
+    e_target = e_direct / 10.0 ** (room.drr_db / 10.0)
+    e_tail_target = e_target - e_early
+    if e_tail_target <= 0:
+        raise ParameterError(
+            f"the reflections of {room.name!r} alone carry more energy than a DRR of "
+            f"{room.drr_db:g} dB allows; raise drr_db or weaken the reflections")
+    tail *= math.sqrt(e_tail_target / float(np.sum(tail**2)))
+    return direct + early + tail
+
+
+def virtual_take(program: np.ndarray, fs: int, h: np.ndarray, *, latency_s: float = 0.0,
+                 drift_ppm: float = 0.0, hd2_percent: float = 0.0, hd3_percent: float = 0.0,
+                 noise_dbfs: float | None = None, extra_s: float = 0.0, seed: int = 0
+                 ) -> np.ndarray:
+    """What a microphone records when ``program`` is played into the room ``h``.
+
+    Parameters
+    ----------
+    program : ndarray, (n,)
+        The file that is played (e.g. :attr:`measure.sweep.Sweep.program`).
+    fs : int, Hz
+        Sample rate of the player.
+    h : ndarray, (m,)
+        Room impulse response at ``fs``.
+    latency_s : float, >= 0, s
+        Delay of the playback/recording chain, may be fractional.
+    drift_ppm : float
+        How fast the recorder's clock runs against the player's, in parts per million; a
+        positive value records more samples than were played.
+    hd2_percent, hd3_percent : float, >= 0, %
+        Second and third harmonic distortion of the loudspeaker at the program's peak level A,
+        each relative to the fundamental at the output, from the memoryless polynomial
+        u = x + a2·x² + a3·x³. For x = A·sin θ the identities sin²θ = (1 − cos 2θ)/2 and
+        sin³θ = (3 sin θ − sin 3θ)/4 give a fundamental A·g with g = 1 + 3·a3·A²/4, a second
+        harmonic a2·A²/2 and a third a3·A³/4; hence a3 = 4·HD3/(A²·(1 − 3·HD3)) and
+        a2 = 2·HD2·g/A (derived).
+    noise_dbfs : float or None, dBFS
+        RMS level of white background noise added at the microphone; None for none.
+    extra_s : float, >= 0, s
+        Extra recording after the program's end.
+    seed : int
+        Seed of the noise generator.
+
+    Returns
+    -------
+    ndarray, (k,)
+        The recording at the recorder's own rate (fs·(1 + drift)).
+    """
+    fs = check_fs(fs)
+    x = check_signal(program, "program", ndim=(1,))
+    h = check_signal(h, "room response", ndim=(1,))
+    check_nonnegative(latency_s, "latency", unit="s")
+    check_nonnegative(hd2_percent, "HD2", unit="%")
+    check_nonnegative(hd3_percent, "HD3", unit="%")
+    check_nonnegative(extra_s, "extra", unit="s")
+    peak = float(np.max(np.abs(x)))
+    if peak > 0 and (hd2_percent or hd3_percent):
+        hd2, hd3 = hd2_percent / 100.0, hd3_percent / 100.0
+        if hd3 >= 1.0 / 3.0:
+            raise ParameterError(f"hd3_percent={hd3_percent!r} must be below 33.3 %")
+        a3 = 4.0 * hd3 / (peak**2 * (1.0 - 3.0 * hd3))
+        a2 = 2.0 * hd2 * (1.0 + 0.75 * a3 * peak**2) / peak
+        x = x + a2 * x**2 + a3 * x**3
+    from scipy.signal import fftconvolve
+
+    z = fftconvolve(x, h)
+    ratio = 1.0 + drift_ppm * 1e-6
+    n_out = int(math.floor((x.size + latency_s * fs + extra_s * fs) * ratio))
+    # Recorder sample k is taken at player time k/ratio; the chain delays everything by latency.
+    positions = np.arange(n_out) / ratio - latency_s * fs
+    if drift_ppm == 0.0 and float(latency_s * fs).is_integer():
+        lag = int(latency_s * fs)
+        y = np.zeros(n_out)
+        m = min(n_out - lag, z.size)
+        y[lag:lag + m] = z[:m]
+    else:
+        y = interpolate(z, positions)
+    if noise_dbfs is not None:
+        rng = np.random.default_rng(seed)
+        y = y + 10.0 ** (noise_dbfs / 20.0) * rng.standard_normal(y.size)
+    return y
+
+
+def _octave_room(name: str, rt_s: tuple[float, ...], *, direct_delay_s: float, drr_db: float,
+                 reflections: tuple[tuple[float, float], ...], length_s: float,
+                 tail_onset_s: float) -> VirtualRoom:
+    return VirtualRoom(name=name, band_centers_hz=OCTAVE_CENTERS_HZ, rt_s=rt_s,
+                       direct_delay_s=direct_delay_s, drr_db=drr_db, reflections=reflections,
+                       length_s=length_s, tail_onset_s=tail_onset_s)
+
+
+#: The demo building, "Larkspur Yard Depot" (invented): three rooms with their own character.
+#: Reverberation times per octave 63 Hz–8 kHz; reflections as (delay after direct s, gain).
+DEMO_ROOMS: tuple[VirtualRoom, ...] = (
+    # A tiled concrete stairwell: long, bright-ish decay, strong floor/landing reflections.
+    _octave_room("stairwell", (2.6, 2.5, 2.4, 2.3, 2.1, 1.8, 1.4, 0.9),
+                 direct_delay_s=0.0117, drr_db=-6.0,
+                 reflections=((0.0041, 0.55), (0.0093, -0.38), (0.0158, 0.30), (0.0236, 0.22)),
+                 length_s=3.5, tail_onset_s=0.004),
+    # A carpeted open-plan office with a lay-in ceiling: short, dull decay.
+    _octave_room("office", (0.75, 0.62, 0.52, 0.45, 0.42, 0.40, 0.36, 0.30),
+                 direct_delay_s=0.0087, drr_db=3.0,
+                 reflections=((0.0029, 0.42), (0.0071, 0.25), (0.0124, -0.18)),
+                 length_s=1.5, tail_onset_s=0.003),
+    # A concrete parking level: big, low ceiling, long low-frequency decay, flutter echoes.
+    _octave_room("parking", (3.4, 3.1, 2.8, 2.6, 2.3, 1.9, 1.4, 0.9),
+                 direct_delay_s=0.0233, drr_db=-9.0,
+                 reflections=((0.0062, 0.50), (0.0187, 0.33), (0.0311, -0.27), (0.0436, 0.2)),
+                 length_s=4.5, tail_onset_s=0.006),
+)
