@@ -409,13 +409,21 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
     from measure.errors import MeasureError
 
     ref_row = None if loopback is None else list(input_channels).index(loopback)
-    mic_rows = [i for i in range(len(labels)) if i != ref_row]
     extra: list[str] = []
+    # Digital silence holds no sweep: say so instead of deconvolving nothing.
+    if ref_row is not None and stats[ref_row].peak_dbfs is None:
+        extra.append(
+            f"{labels[ref_row]} is silent: check the loopback cable and that the sweep plays on "
+            f"output {loopback + 1} (--output-channels)")
+        ref_row = None
+    mic_rows = [i for i in range(len(labels))
+                if i != ref_row and "reference" not in labels[i] and stats[i].peak_dbfs is not None]
     ir = None
-    try:
-        ir = recover_ir(y, sweep, channels=mic_rows, reference_channel=ref_row)
-    except MeasureError as err:
-        extra.append(f"no impulse response could be recovered: {err}")
+    if mic_rows:
+        try:
+            ir = recover_ir(y, sweep, channels=mic_rows, reference_channel=ref_row)
+        except MeasureError as err:
+            extra.append(f"no impulse response could be recovered: {err}")
     found = [True] * len(labels)
     pnr: list[float | None] = [None] * len(labels)
     analysis: dict[str, Any] = {"ir": None, "channels": [], "figures": None}
@@ -433,7 +441,7 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
         analysis["drift_ppm"] = ir.drift_ppm
         analysis["n_averaged"] = ir.n_averaged
         analysis["referenced_to_loopback"] = ir.reference_channel is not None
-        analysis["figures"] = room_figures(ir)
+        analysis["figures"] = room_figures(ir, sweep)
     for i, st in enumerate(stats):
         if st.peak_dbfs is None:
             found[i] = False
@@ -447,13 +455,32 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
             "input": [dict(s.to_dict(), label=lab) for s, lab in zip(stats, labels, strict=True)]}
 
 
-def room_figures(ir: Any) -> Any:
-    """ISO 3382 figures of the recovered IR via measure.parameters.analyze_ir, if available."""
-    try:
-        from measure.parameters import analyze_ir
-    except ImportError:
-        return None
-    return analyze_ir(ir).to_dict()
+def room_figures(ir: Any, sweep: Any) -> list[dict[str, Any]]:
+    """ISO 3382-1 figures of each recovered IR (measure.parameters.analyze_ir), octave bands
+    inside the sweep's range; a channel whose figures cannot be computed gets its reason."""
+    import math
+
+    from measure.capture import OCTAVE_CENTRES_HZ
+    from measure.errors import MeasureError
+    from measure.parameters import analyze_ir
+
+    spec = sweep.spec
+    inside = [fc for fc in OCTAVE_CENTRES_HZ
+              if fc / math.sqrt(2.0) >= spec.f1_hz and fc * math.sqrt(2.0) <= spec.f2_hz]
+    out: list[dict[str, Any]] = []
+    for k, row in enumerate(ir.channels):
+        entry: dict[str, Any] = {"file_channel": row + 1}
+        if not inside:
+            entry["error"] = "the sweep covers no whole octave band"
+        else:
+            try:
+                fig = analyze_ir(ir.h[k], ir.fs, bands="octave", f_lo_hz=max(63.0, inside[0]),
+                                 f_hi_hz=min(8000.0, inside[-1]))
+                entry.update(fig.to_dict())
+            except MeasureError as err:
+                entry["error"] = str(err)
+        out.append(entry)
+    return out
 
 
 def format_summary(summary: dict[str, Any], take: Any, fs: int, rec: Any = None) -> list[str]:
@@ -479,12 +506,8 @@ def format_summary(summary: dict[str, Any], take: Any, fs: int, rec: Any = None)
     if an["ir"] is not None:
         lines.append(f"clock drift {an['drift_ppm']:+.2f} ppm, {an['n_averaged']} sweep(s) "
                      "averaged")
-    fig = summary["analysis"].get("figures")
-    if isinstance(fig, dict):
-        for key in ("t20_s", "t30_s", "edt_s", "c50_db", "c80_db", "d50", "ts_s"):
-            val = fig.get(key)
-            if isinstance(val, (int, float)):
-                lines.append(f"  {key}: {val:.3g}")
+    for fig in summary["analysis"].get("figures") or []:
+        lines += _figure_lines(fig)
     v = summary["verdict"]
     if v["verdict"] == "good":
         lines.append("verdict   GOOD")
@@ -492,4 +515,27 @@ def format_summary(summary: dict[str, Any], take: Any, fs: int, rec: Any = None)
         lines.append("verdict   REDO")
         lines += [f"  - {r}" for r in v["reasons"]]
     lines += [f"  note: {n}" for n in v["notes"]]
+    return lines
+
+
+def _figure_lines(fig: dict[str, Any]) -> list[str]:
+    """A compact table of one channel's figures: T20, T30, EDT, C50, C80 per octave."""
+    if "error" in fig:
+        return [f"figures of file channel {fig['file_channel']}: not computed ({fig['error']})"]
+
+    def cell(v: Any, scale: float = 1.0, nd: int = 2) -> str:
+        return "-" if v is None else f"{v * scale:.{nd}f}"
+
+    bands = fig.get("bands", [])
+    lines = [f"figures of file channel {fig['file_channel']} (octaves; '-' = not measurable, "
+             "see the sidecar's flags):",
+             "  band   " + " ".join(f"{b['label']:>6}" for b in bands)]
+    for key, name, nd in (("t20_s", "T20 s", 2), ("t30_s", "T30 s", 2), ("edt_s", "EDT s", 2),
+                          ("c50_db", "C50 dB", 1), ("c80_db", "C80 dB", 1)):
+        lines.append(f"  {name:<7}" + " ".join(f"{cell(b.get(key), nd=nd):>6}" for b in bands))
+    sn = fig.get("single_numbers") or {}
+    if sn.get("t_mid_s") is not None:
+        lines.append(f"  T_mid {sn['t_mid_s']:.2f} s ({sn.get('t_mid_from')}, 500 Hz-1 kHz)")
+    if fig.get("sti") is not None:
+        lines.append(f"  STI {fig['sti']:.2f}")
     return lines
