@@ -246,10 +246,14 @@ def test_same_rate_returns_the_stored_sections():
 def test_remap_to_another_rate_keeps_the_magnitude(fs_new):
     # Re-rendering at another rate: the re-fitted filter must match the original's magnitude
     # over the common band to well under 1 dB, the JND of level-type quantities in ISO 3382-1
-    # Table A.1 (modeling.md §7.1); bound 0.3 dB LSD (measured 0.01-0.16 dB).
+    # Table A.1 (modeling.md §7.1); bound 0.3 dB LSD (measured 0.01-0.12 dB). Going up in
+    # rate, a root at the old Nyquist frequency becomes a pair: the order may grow by one.
     col = fit_coloration(room_like_ir(7), FS, order=8)
     new = remap_coloration(col, fs_new)
-    assert new.fs == fs_new and new.order == col.order
+    n_neg = int(np.sum((np.abs(col.poles.imag) < 1e-9) & (col.poles.real < 0))
+                + np.sum((np.abs(col.zeros.imag) < 1e-9) & (col.zeros.real < 0)))
+    assert new.fs == fs_new
+    assert col.order <= new.order <= col.order + (n_neg if fs_new > FS else 0)
     assert new.lsd_db < 0.3
     z, p, _ = signal.sos2zpk(coloration_sos(col, fs_new))
     assert np.all(np.abs(p) < 1.0) and np.all(np.abs(z) < 1.0)
