@@ -46,8 +46,11 @@ __all__ = ["HarmonicDistortion", "ImpulseResponse", "recover_ir", "IR_FORMAT"]
 IR_FORMAT = "measure.ir/1"
 #: Largest clock drift searched for when locating repeated sweeps.
 MAX_DRIFT_PPM = 300.0
-#: A sweep is "found" when its response peak stands this far above the deconvolved noise.
-DETECTION_DB = 20.0
+#: A sweep is "found" when its response peak stands this far above the deconvolved noise
+#: (robust RMS). Deconvolved white noise alone reaches about 24 dB over 10 s of recording.
+DETECTION_DB = 30.0
+#: How far (s) another channel's direct sound is looked for around the timing channel's.
+ARRIVAL_SEARCH_S = 0.1
 #: Samples at or beyond this magnitude count as clipped.
 CLIP_LEVEL = 0.999
 #: Group-delay fit band for the single-sweep drift estimate (measurement.md §1.6).
@@ -469,11 +472,18 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
         row = d[c]
         h_rows.append(_read_average(row, origins, n_len, sweep, eps, unstretch=unstretch,
                                     trim_pre=pre))
-        # the channel's own direct sound (it may lag the timing channel's)
-        wc = w if c == timing else _read_average(row, np.array([float(lo)]), 4 * radius, sweep,
-                                                 eps, unstretch=False)
-        pc = _relocate(np.abs(wc), p_w, sweep, fs)
-        arrivals.append(lo + _fine_position(wc, pc))
+        # the channel's own direct sound: it may be far from the timing channel's
+        if c == timing:
+            lo_c, wc, pc = lo, w, p_w
+        else:
+            reach = int(ARRIVAL_SEARCH_S * fs)
+            a = max(int(starts[0]) - reach, 0)
+            p_nom = a + int(np.argmax(np.abs(row[a:int(starts[0]) + reach])))
+            lo_c = p_nom - 2 * radius
+            wc = _read_average(row, np.array([float(lo_c)]), 4 * radius, sweep, eps,
+                               unstretch=False)
+            pc = _relocate(np.abs(wc), 2 * radius, sweep, fs)
+        arrivals.append(lo_c + _fine_position(wc, pc))
         hh = []
         for order in range(2, n_harmonics + 2):
             adv = spec.rate_constant_s * fs * math.log(order) * stretch

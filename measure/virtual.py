@@ -79,21 +79,31 @@ class VirtualRoom:
             check_positive(d, "reflection delay", unit="s")
 
 
+#: Width (octaves) of the cross-fade between neighbouring bands of the synthetic tail.
+CROSSFADE_OCTAVES = 1.0 / 3.0
+
+
 def _band_masks(n_fft: int, fs: int, centers_hz: tuple[float, ...]) -> np.ndarray:
-    """Complementary raised-cosine masks on log2 f, one per band, summing to 1 at every bin."""
+    """Complementary masks, one per band, summing to 1 at every bin.
+
+    Each band is flat between the geometric midpoints to its neighbours and cross-fades
+    (sin²/cos² in log f, CROSSFADE_OCTAVES wide) into them, so an octave filter centred on a
+    band sees mostly that band's decay.
+    """
     f = np.fft.rfftfreq(n_fft, 1.0 / fs)
     lf = np.log2(np.maximum(f, 1e-3))
     lc = np.log2(np.asarray(centers_hz))
-    masks = np.zeros((lc.size, f.size))
+    edges = 0.5 * (lc[1:] + lc[:-1])  # log2 of the geometric midpoints
+    half = 0.5 * CROSSFADE_OCTAVES
+    # rise[j]: 0 below edge j, 1 above it, with the cross-fade across it
+    rise = [np.sin(0.5 * math.pi * np.clip((lf - e + half) / (2 * half), 0.0, 1.0)) ** 2
+            for e in edges]
+    masks = np.ones((lc.size, f.size))
     for b in range(lc.size):
-        m = np.ones_like(f)
-        if b > 0:  # rising half from the previous centre to this one
-            u = np.clip((lf - lc[b - 1]) / (lc[b] - lc[b - 1]), 0.0, 1.0)
-            m = np.minimum(m, np.sin(0.5 * math.pi * u) ** 2)
-        if b < lc.size - 1:  # falling half to the next centre
-            u = np.clip((lf - lc[b]) / (lc[b + 1] - lc[b]), 0.0, 1.0)
-            m = np.minimum(m, np.cos(0.5 * math.pi * u) ** 2)
-        masks[b] = m
+        if b > 0:
+            masks[b] *= rise[b - 1]
+        if b < lc.size - 1:
+            masks[b] *= 1.0 - rise[b]
     return masks
 
 
