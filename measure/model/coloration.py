@@ -90,6 +90,8 @@ __all__ = [
 Method = Literal["lm", "warped_lp"]
 METHODS: tuple[str, ...] = ("lm", "warped_lp")
 
+#: Budget of residual evaluations of one Levenberg-Marquardt solve, per parameter.
+MAX_NFEV_PER_PARAM = 20
 #: Points per octave of the fitting grid.
 GRID_PER_OCTAVE = 48
 #: Weight of the guard regions outside the fit band (half an octave below, up to 0.49·fs above).
@@ -461,8 +463,8 @@ def _solve(x0: NDArray[np.float64], w: NDArray[np.float64], target_db: NDArray[n
 
     cost0 = 0.5 * float(np.sum(fun(x0) ** 2))
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        res = optimize.least_squares(fun, x0, jac=jac, method="lm", xtol=1e-10, ftol=1e-10,
-                                     gtol=1e-10, max_nfev=100 * (x0.size + 1))
+        res = optimize.least_squares(fun, x0, jac=jac, method="lm", xtol=1e-9, ftol=1e-9,
+                                     gtol=1e-9, max_nfev=MAX_NFEV_PER_PARAM * (x0.size + 1))
     x = res.x.copy()
     x[:-1] = np.clip(x[:-1], -PARAM_LIMIT, PARAM_LIMIT)  # roots strictly inside |z| = 1
     cost = 0.5 * float(np.sum(fun(x) ** 2))
