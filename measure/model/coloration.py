@@ -21,9 +21,11 @@ Method (``method="lm"``, the default)
        is stable and minimum phase, with order poles and order zeros.
     3. Refinement: Levenberg-Marquardt (``scipy.optimize.least_squares``, analytic Jacobian)
        on the log-magnitude error 20·log10|H(f_k)| − L(f_k), i.e. on the very log-spectral
-       distance that is reported. Each root is parameterised as r = exp(−e^v), angle θ (pairs)
-       or x = tanh(u) (real roots), so every iterate is stable and minimum phase by
-       construction: no reflection step is needed.
+       distance that is reported. Each section's numerator and denominator 1 + c1·z⁻¹ + c2·z⁻²
+       is parameterised as c2 = tanh(α), c1 = (1 + c2)·tanh(β), which spans exactly the
+       stability triangle, so every iterate is stable and minimum phase by construction (no
+       reflection step). A second start per order adds a peaking section at the largest
+       residual to the previous order's fit; the better of the two is kept.
 
 ``method="warped_lp"`` returns the all-pole warped LP of step 2 alone (order poles, order zeros
 fixed at z = λ), kept for comparison.
