@@ -1,0 +1,166 @@
+"""The command line: sweep, ir and demo; errors as one `error:` line with exit status 2."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from measure.cli import main
+from measure.cli.cmd_sweep import default_fade_in_s
+from measure.sweep import SweepSpec, make_sweep
+from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
+
+FS = 48000
+
+
+def run(argv: list[str], capsys) -> tuple[int, str, str]:
+    code = main(argv)
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+@pytest.fixture
+def sweep_file(tmp_path: Path, capsys) -> Path:
+    path = tmp_path / "sweep.wav"
+    code, _, _ = run(["sweep", str(path), "--rate", str(FS), "--f1", "20", "--duration", "2",
+                      "--gap", "1.5"], capsys)
+    assert code == 0
+    return path
+
+
+@pytest.fixture
+def capture_file(tmp_path: Path, sweep_file: Path) -> Path:
+    from measure.audio_io import read_sweep
+
+    sweep = read_sweep(sweep_file)
+    y = virtual_take(sweep.program, FS, room_ir(DEMO_ROOMS[1], FS), latency_s=0.05,
+                     drift_ppm=20.0, noise_dbfs=-80.0, extra_s=0.2)
+    path = tmp_path / "capture.wav"
+    sf.write(path, y, FS, subtype="PCM_24")
+    return path
+
+
+def test_sweep_writes_the_file_and_a_sidecar_that_rebuilds_it_bit_for_bit(sweep_file):
+    side = json.loads(sweep_file.with_suffix(".json").read_text())
+    assert side["format"] == "measure.sweep/1" and side["tool_version"]
+    spec = SweepSpec(**side["sweep"])
+    data, fs = sf.read(sweep_file, dtype="float32")
+    assert fs == FS
+    np.testing.assert_array_equal(data, make_sweep(spec).program.astype(np.float32))
+
+
+def test_ir_writes_a_float_wav_and_its_json(tmp_path, sweep_file, capture_file, capsys):
+    out = tmp_path / "ir.wav"
+    code, stdout, _ = run(["ir", str(capture_file), "--sweep", str(sweep_file), "--out",
+                           str(out), "--json"], capsys)
+    assert code == 0
+    info = sf.info(out)
+    assert info.subtype == "FLOAT" and info.samplerate == FS
+    side = json.loads(out.with_suffix(".json").read_text())
+    for key in ("sample_rate", "latency_s", "drift_ppm", "peak_to_noise_db",
+                "harmonic_distortion", "sweep", "sources", "tool_version"):
+        assert key in side
+    assert side["drift_ppm"] == pytest.approx(20.0, abs=2.0)  # issue: drift within 2 ppm
+    assert json.loads(stdout)["drift_ppm"] == side["drift_ppm"]
+
+
+def _write(path: Path, x: np.ndarray, fs: int = FS, subtype: str = "FLOAT") -> Path:
+    sf.write(path, x, fs, subtype=subtype)
+    return path
+
+
+@pytest.mark.parametrize("case", ["missing", "unreadable", "short", "no-sweep", "rate",
+                                  "no-sidecar", "bad-sidecar", "nan"])
+def test_each_bad_input_is_one_error_line_exit_2_and_writes_nothing(
+        case, tmp_path, sweep_file, capture_file, capsys):
+    capture, sweep = capture_file, sweep_file
+    if case == "missing":
+        capture = tmp_path / "nothing.wav"
+    elif case == "unreadable":
+        capture = tmp_path / "text.wav"
+        capture.write_text("not audio")
+    elif case == "short":
+        capture = _write(tmp_path / "short.wav", np.zeros(FS // 2))
+    elif case == "no-sweep":
+        rng = np.random.default_rng(0)
+        capture = _write(tmp_path / "noise.wav", 0.01 * rng.standard_normal(5 * FS))
+    elif case == "rate":
+        data, _ = sf.read(capture_file)
+        capture = _write(tmp_path / "44k.wav", data, fs=44100)
+    elif case == "no-sidecar":
+        sweep = tmp_path / "lonely.wav"
+        sweep.write_bytes(sweep_file.read_bytes())
+    elif case == "bad-sidecar":
+        sweep_file.with_suffix(".json").write_text("{ not json")
+    elif case == "nan":
+        data, _ = sf.read(capture_file)
+        data[1000] = np.nan
+        capture = _write(tmp_path / "nan.wav", data)
+    out = tmp_path / "ir.wav"
+    code, _, err = run(["ir", str(capture), "--sweep", str(sweep), "--out", str(out)], capsys)
+    assert code == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: ")
+    assert ";" in lines[0]  # what was wrong; what to do
+    assert "Traceback" not in err
+    assert not out.exists() and not out.with_suffix(".json").exists()
+
+
+def test_a_clipped_capture_is_recovered_with_a_warning(tmp_path, sweep_file, capture_file, capsys):
+    data, _ = sf.read(capture_file)
+    clipped = _write(tmp_path / "clipped.wav", np.clip(data * 50, -1, 1))
+    out = tmp_path / "ir.wav"
+    code, _, err = run(["ir", str(clipped), "--sweep", str(sweep_file), "--out", str(out)], capsys)
+    assert code == 0 and out.exists()
+    assert "warning:" in err and "clipped" in err
+
+
+@pytest.mark.parametrize("argv, match", [
+    (["--f2", "30000"], "exceeds Nyquist"),
+    (["--f1", "5000", "--f2", "1000"], "must be below"),
+    (["--duration", "0"], "duration"),
+    (["--rate", "0"], "sample rate"),
+])
+def test_sweep_refuses_bad_parameters(tmp_path, capsys, argv, match):
+    out = tmp_path / "s.wav"
+    code, _, err = run(["sweep", str(out), *argv], capsys)
+    assert code == 2 and err.startswith("error: ") and match in err
+    assert not out.exists()
+
+
+def test_cli_defaults_match_the_library_defaults():
+    # STYLE.md §9: one test that the CLI defaults match the library defaults.
+    from measure.cli import build_parser
+
+    args = build_parser().parse_args(["sweep", "x.wav"])
+    spec_defaults = {f.name: f.default for f in SweepSpec.__dataclass_fields__.values()}
+    assert args.gap == spec_defaults["gap_s"]
+    assert args.lead_in == spec_defaults["lead_in_s"]
+    assert args.fade_out == spec_defaults["fade_out_s"]
+    assert args.repeats == spec_defaults["repeats"]
+    assert args.level is None  # None means the library's DEFAULT_LEVEL_DBFS
+    assert default_fade_in_s(20.0, 24000.0, 5.0) == pytest.approx(0.1 * 5.0 * np.log(2) / np.log(1200))
+
+
+def test_python_dash_m_and_help_work():
+    r = subprocess.run([sys.executable, "-m", "measure", "--help"], capture_output=True, text=True)
+    assert r.returncode == 0 and "demo" in r.stdout and "sweep" in r.stdout
+
+
+def test_demo_runs_end_to_end_without_hardware(tmp_path, capsys):
+    code, out, err = run(["demo", "--out", str(tmp_path / "demo")], capsys)
+    assert code == 0
+    root = tmp_path / "demo"
+    assert (root / "sweeps" / "demo-sweep.wav").exists()
+    assert len(list((root / "captures").glob("*/*-take1.wav"))) == 3
+    assert len(list((root / "irs").glob("*.wav"))) == 3
+    for fig in (root / "figures").glob("*.json"):
+        doc = json.loads(fig.read_text())
+        assert doc["drift_ppm"] == pytest.approx(23.0, abs=2.0)  # the demo's virtual USB mic
+    assert "stairwell" in out and "Look in" in out
