@@ -80,6 +80,9 @@ __all__ = [
     "calibrate_decay",
     "octave_t30_s",
     "make_network",
+    "render_late_bands",
+    "kept_bands",
+    "envelope_gain",
 ]
 
 #: Number of delay lines. 16 is a power of two (a normalised Hadamard matrix exists) and gives a
@@ -109,6 +112,8 @@ CALIBRATION_RANGE = 1.6
 #: Length of the renderings :func:`calibrate_decay` analyses, in units of the longest T60:
 #: 60 dB of decay, enough for T30's 45 dB of range (ISO 3382-1 5.3.3).
 CALIBRATION_LENGTH = 1.0
+#: Length of the power ramp of the envelope correction at each segment edge, s.
+ENVELOPE_RAMP_S = 0.002
 
 
 def orthogonal_matrix(n_lines: int) -> np.ndarray:
@@ -422,16 +427,24 @@ class LateReverb:
     band_centers_hz : tuple of float
         Octave-band centres, rising.
     t60_s : tuple of float, > 0, s
-        Decay time per band.
+        Decay time of the network per band.
     level_db : tuple of float, dB
-        Energy of the late part within each band mask, ``10·log10 Σ h_b[n]²``, re the energy of
-        a unit impulse (so the ratio to the direct sound is the same at every sample rate).
+        Energy of the late part within each band mask before the envelope correction,
+        ``10·log10 Σ h_b[n]²``, re the energy of a unit impulse (so its ratio to the direct
+        sound is the same at every sample rate).
     start_s : float, >= 0, s
         Where the late part starts, re the direct sound.
     fade_s : float, >= 0, s
         Length of its half-Hann fade-in.
     delays_s : tuple of float, s
         Nominal delay-line lengths (made distinct primes at the rendering rate).
+    envelope_edges_s : tuple of tuple of float, s
+        Per band, segment edges re the direct sound (rising) of its envelope correction;
+        ``()`` for no correction at all.
+    envelope_db : tuple of tuple of float, dB
+        Per band, one gain per segment (see :func:`envelope_gain`): the early energy of a
+        measured band rarely follows one exponential, and this is what makes the model's early
+        decay and clarity follow the measurement's.
     """
 
     band_centers_hz: tuple[float, ...]
@@ -440,6 +453,8 @@ class LateReverb:
     start_s: float
     fade_s: float
     delays_s: tuple[float, ...]
+    envelope_edges_s: tuple[tuple[float, ...], ...] = ()
+    envelope_db: tuple[tuple[float, ...], ...] = ()
 
     def __post_init__(self) -> None:
         n = len(self.band_centers_hz)
@@ -463,6 +478,28 @@ class LateReverb:
             raise ParameterError(f"{n_l} delay lines given; the network needs a power of two >= 2")
         for d in self.delays_s:
             check_positive(d, "delay", unit="s")
+        if len(self.envelope_edges_s) or len(self.envelope_db):
+            if len(self.envelope_edges_s) != n or len(self.envelope_db) != n:
+                raise ParameterError(
+                    f"the envelope needs knots and gains for each of the {n} bands; got "
+                    f"{len(self.envelope_edges_s)} and {len(self.envelope_db)}; re-fit the model")
+            for b, (kn, db) in enumerate(zip(self.envelope_edges_s, self.envelope_db,
+                                             strict=True)):
+                k = np.asarray(kn, dtype=np.float64)
+                d = np.asarray(db, dtype=np.float64)
+                if (k.ndim != 1 or d.ndim != 1 or d.size < 1 or k.size != d.size + 1
+                        or not np.all(np.isfinite(k)) or not np.all(np.isfinite(d))
+                        or np.any(np.diff(k) <= ENVELOPE_RAMP_S)):
+                    raise ParameterError(
+                        f"envelope of band {b}: edges {kn!r} must be finite and rising (more than "
+                        f"{ENVELOPE_RAMP_S * 1000:g} ms apart), one more than its gains {db!r}; "
+                        "re-fit the model")
+
+    def replace(self, **changes) -> LateReverb:
+        """A copy with some fields changed."""
+        d = {k: getattr(self, k) for k in self.__slots__}
+        d.update(changes)
+        return LateReverb(**d)
 
     def to_dict(self) -> dict:
         return {
@@ -472,6 +509,9 @@ class LateReverb:
             "start_s": float(self.start_s),
             "fade_s": float(self.fade_s),
             "delays_s": [float(v) for v in self.delays_s],
+            "envelope_edges_s": [[round(float(v), 6) for v in row]
+                                 for row in self.envelope_edges_s],
+            "envelope_db": [[round(float(v), 3) for v in row] for row in self.envelope_db],
         }
 
 
@@ -485,8 +525,13 @@ def make_network(late: LateReverb, fs: int) -> DelayNetwork:
         b=_sign_pattern(n, 1), c=_sign_pattern(n, 2) / math.sqrt(n))
 
 
-def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
-    """The late part alone, ``n_samples`` long, time 0 = the direct sound.
+def kept_bands(late: LateReverb, fs: int) -> np.ndarray:
+    """Mask of the bands rendered at ``fs``: centres below 0.45·fs."""
+    return np.asarray(late.band_centers_hz) < 0.45 * fs
+
+
+def render_late_bands(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
+    """The late part band by band, ``(kept bands, n_samples)``, time 0 = the direct sound.
 
     Parameters
     ----------
@@ -496,7 +541,8 @@ def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
 
     Returns
     -------
-    ndarray, shape (n_samples,)
+    ndarray, shape (number of bands with centre < 0.45·fs, n_samples)
+        Their sum is :func:`render_late`.
 
     Notes
     -----
@@ -504,40 +550,38 @@ def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
        :data:`PREROLL_ROUND_TRIPS` mean delays (the sparse first round trips).
     2. Apply the half-Hann fade-in and place the start at ``start_s``.
     3. Weight each band's output with its mask in the frequency domain (zero phase), scale it to
-       its energy ``level_db`` and sum.
-    Bands whose centre lies above 0.9 · Nyquist are left out and their mask's share goes to the
-    highest band kept.
+       its energy ``level_db``, and multiply by the band's envelope correction.
+    Bands whose centre lies above 0.45·fs are left out and the mask of the highest band kept
+    reaches to Nyquist.
     """
     from scipy.fft import irfft, next_fast_len, rfft
 
     fs = check_fs(fs)
     n_samples = int(n_samples)
-    fc = np.asarray(late.band_centers_hz)
-    keep = fc < 0.45 * fs
+    keep = kept_bands(late, fs)
     if not np.any(keep):
         raise ParameterError(f"every late band lies above Nyquist at fs={fs}; use a higher rate")
+    fc = np.asarray(late.band_centers_hz)[keep]
     net = make_network(late, fs)
     net = DelayNetwork(net.delays, net.matrix, np.ascontiguousarray(net.gains[keep]), net.b, net.c)
+    out = np.zeros((fc.size, n_samples))
     start = int(round(late.start_s * fs))
     fade = int(round(late.fade_s * fs))
     if start >= n_samples:
-        return np.zeros(n_samples)
+        return out
     lead = int(round(0.01 * fs))  # room before the start for the masks' zero-phase spread
     n_pre = int(round(PREROLL_ROUND_TRIPS * np.mean(net.delays)))
     n_body = n_samples - start
-    n_run = n_pre + n_body
-    y, _ = run_network(net, n_run, x=np.ones(1))
+    y, _ = run_network(net, n_pre + n_body, x=np.ones(1))
     seg = y[:, n_pre:]
     if fade > 0:
         k = min(fade, n_body)
         seg[:, :k] *= np.sin(0.5 * np.pi * (np.arange(k) + 0.5) / fade) ** 2
     n_fft = next_fast_len(lead + n_body + lead, real=True)
-    buf = np.zeros((seg.shape[0], n_fft))
+    buf = np.zeros((fc.size, n_fft))
     buf[:, lead: lead + n_body] = seg
     spec = rfft(buf, axis=1)
-    freqs = np.arange(spec.shape[1]) * fs / n_fft
-    masks = band_masks(fc[keep], freqs)
-    spec *= masks
+    spec *= band_masks(fc, np.arange(spec.shape[1]) * fs / n_fft)
     # Parseval for a real signal's half spectrum: interior bins count twice
     wts = np.full(spec.shape[1], 2.0)
     wts[0] = 1.0
@@ -545,16 +589,51 @@ def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
         wts[-1] = 1.0
     energy = (np.abs(spec) ** 2 @ wts) / n_fft
     target = 10.0 ** (np.asarray(late.level_db)[keep] / 10.0)
-    scale = np.sqrt(target / np.maximum(energy, 1e-300))
-    out_spec = np.einsum("b,bk->k", scale, spec)
-    body = irfft(out_spec, n=n_fft)
-    out = np.zeros(n_samples)
+    spec *= np.sqrt(target / np.maximum(energy, 1e-300))[:, np.newaxis]
+    body = irfft(spec, n=n_fft, axis=1)
     lo = start - lead
-    src0 = max(0, -lo)
-    dst0 = max(0, lo)
+    src0, dst0 = max(0, -lo), max(0, lo)
     n_copy = min(n_samples - dst0, n_fft - src0)
-    out[dst0: dst0 + n_copy] = body[src0: src0 + n_copy]
+    out[:, dst0: dst0 + n_copy] = body[:, src0: src0 + n_copy]
+    if late.envelope_edges_s:
+        t = np.arange(n_samples) / fs
+        rows = [i for i in range(keep.size) if keep[i]]
+        for j, i in enumerate(rows):
+            if len(late.envelope_edges_s[i]):
+                out[j] *= envelope_gain(t, late.envelope_edges_s[i], late.envelope_db[i])
     return out
+
+
+def envelope_gain(t_s: np.ndarray, edges_s: Sequence[float], gains_db: Sequence[float]
+                  ) -> np.ndarray:
+    """Amplitude factor of an envelope correction: one gain per segment between edges.
+
+    ``len(edges_s) == len(gains_db) + 1``; the first gain also holds before the first edge and
+    the last one after the last edge. At each interior edge the power gain ramps linearly over
+    :data:`ENVELOPE_RAMP_S` centred on the edge, so the correction has no clicks.
+    """
+    e = np.asarray(edges_s, dtype=np.float64)
+    p = 10.0 ** (np.asarray(gains_db, dtype=np.float64) / 10.0)
+    if p.size == 1:
+        return np.full(np.shape(t_s), math.sqrt(p[0]))
+    half = 0.5 * ENVELOPE_RAMP_S
+    xs, ys = [], []
+    for j, edge in enumerate(e[1:-1]):
+        xs += [edge - half, edge + half]
+        ys += [p[j], p[j + 1]]
+    return np.sqrt(np.interp(t_s, xs, ys))
+
+
+def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
+    """The late part alone, ``n_samples`` long, time 0 = the direct sound.
+
+    See :func:`render_late_bands`, whose bands this sums.
+
+    Returns
+    -------
+    ndarray, shape (n_samples,)
+    """
+    return render_late_bands(late, fs, n_samples).sum(axis=0)
 
 
 def _analysis_bands(late: LateReverb, fs: int):
@@ -624,8 +703,7 @@ def calibrate_decay(late: LateReverb, fs: int, target_t30_s: Sequence[float | No
     measured: list[float | None] = [None] * t60.size
     for _ in range(max(1, int(n_iterations))):
         n = int(round((late.start_s + CALIBRATION_LENGTH * float(t60.max())) * fs)) + 1
-        cur = LateReverb(late.band_centers_hz, tuple(t60), late.level_db, late.start_s,
-                         late.fade_s, late.delays_s)
+        cur = late.replace(t60_s=tuple(float(v) for v in t60))
         measured = octave_t30_s(render_late(cur, fs, n), fs, bands)
         worst = 0.0
         for i, (want, got) in enumerate(zip(target_t30_s, measured, strict=True)):
@@ -637,8 +715,7 @@ def calibrate_decay(late: LateReverb, fs: int, target_t30_s: Sequence[float | No
         if worst < tolerance:
             break
         late = cur
-    final = LateReverb(late.band_centers_hz, tuple(float(v) for v in t60), late.level_db,
-                       late.start_s, late.fade_s, late.delays_s)
+    final = late.replace(t60_s=tuple(float(v) for v in t60))
     if worst >= tolerance:  # the last step changed t60 after the last measurement: re-measure
         n = int(round((final.start_s + CALIBRATION_LENGTH * float(t60.max())) * fs)) + 1
         measured = octave_t30_s(render_late(final, fs, n), fs, bands)

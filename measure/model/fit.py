@@ -1,0 +1,457 @@
+"""Fit a compact room model to a measured impulse response, and report how close it comes.
+
+:func:`fit_model` runs the stages in order:
+
+1. **Direct sound**: the ISO 3382-1 onset (:func:`measure.decay.onset_index`), the peak within
+   1 ms after it, refined to a fraction of a sample by a parabola through |h|.
+2. **Echoes**: :func:`measure.model.echoes.find_echoes` (delays re the direct sound, gains re
+   its amplitude).
+3. **Coloration**: :func:`measure.model.coloration.fit_coloration` on the direct sound (the
+   response up to just before the first echo), so the filter is the colour of the direct path
+   and does not count the echoes or the reverberation a second time.
+4. **Mixing time**: :func:`measure.model.mixing.mixing_time` (normalised echo density).
+5. **Late part**: per octave band (the bands of :func:`measure.parameters.analyze_ir`) a decay
+   time from the measured T30 (T20, then EDT when T30 is missing), the band's energy after the
+   direct sound less what the early part carries, and a per-band network
+   (:mod:`measure.model.late`).
+6. **Envelope**: the late part's energy in each band, in short segments after the direct sound
+   (knots 2.5 ms to ~0.4 s), is matched to the measured residual (measured band minus the
+   modelled direct sound and echoes) by a gain per knot. Beyond the last knot the network's
+   exponential decay alone continues.
+7. **Calibration**: the whole model is rendered and re-analysed with
+   :func:`measure.parameters.analyze_ir`; each band's decay time is scaled by measured T30 over
+   modelled T30 and the envelope is re-fitted, a few times (modeling.md §5.2's analysis by
+   synthesis). The octave filters of the analysis pass part of the neighbouring bands and a
+   single rendering fluctuates around its mean decay; this loop takes both out.
+
+The fit report (:class:`FitReport`) compares, band by band, EDT, T20, T30, C50, C80, D50 and Ts
+of the measurement and of the rendered model, and gives the difference in ISO 3382-1 JNDs
+(:mod:`measure.parameters`: 5 % for EDT and T, 1 dB for C50 and C80, 0.05 for D50, 10 ms for
+Ts).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from measure._validate import check_fs, check_signal
+from measure.errors import FitError, ParameterError
+from measure.model.late import (
+    LateReverb,
+    envelope_gain,
+    kept_bands,
+    nominal_delays_s,
+    render_late_bands,
+)
+from measure.model.modelfile import RoomModel
+
+__all__ = [
+    "FitReport",
+    "FitResult",
+    "ReportCell",
+    "fit_model",
+    "compare_figures",
+    "REPORT_PARAMETERS",
+    "ENVELOPE_SPLITS_S",
+]
+
+#: Parameters of the fit report, their JSON keys and JNDs (ISO 3382-1:2009 Table A.1 via
+#: measure.parameters); "relative" JNDs are fractions of the measured value.
+REPORT_PARAMETERS: tuple[tuple[str, str, str], ...] = (
+    ("edt_s", "EDT", "relative"),
+    ("t20_s", "T20", "relative"),
+    ("t30_s", "T30", "relative"),
+    ("c50_db", "C50", "absolute"),
+    ("c80_db", "C80", "absolute"),
+    ("d50", "D50", "absolute"),
+    ("ts_s", "Ts", "absolute"),
+)
+#: Start of the late part after the direct sound, s: the end of the direct-sound window of
+#: measure.parameters (2.5 ms, common practice).
+LATE_START_S = 0.0025
+#: Half-Hann fade-in of the late part, s.
+LATE_FADE_S = 0.001
+#: Envelope segments (see _band_segments): the 50 and 80 ms clarity splits, one edge per
+#: ENVELOPE_STEP_DB of measured band decay down to ENVELOPE_DEPTH_DB (covering the EDT range),
+#: no segment narrower than ENVELOPE_MIN_BT over the band's bandwidth (an octave filter smears
+#: energy over ~ a few / B seconds) or ENVELOPE_MIN_WIDTH_S, nothing after ENVELOPE_MAX_S.
+ENVELOPE_SPLITS_S: tuple[float, ...] = (0.05, 0.08)
+ENVELOPE_STEP_DB = 2.5
+ENVELOPE_DEPTH_DB = 20.0
+ENVELOPE_MIN_BT = 3.0
+ENVELOPE_MIN_WIDTH_S = 0.008
+ENVELOPE_MAX_S = 1.5
+#: How the bands are filtered for the envelope fit (measure.bands.filter_bands mode).
+MATCH_FILTERING = "reversed"
+#: Envelope gains are kept within these limits, dB.
+ENVELOPE_LIMITS_DB = (-40.0, 20.0)
+#: Calibration passes (render, re-analyse, adjust).
+N_CALIBRATION_PASSES = 3
+#: Fixed-point steps of the envelope fit per pass.
+N_ENVELOPE_STEPS = 4
+
+
+def _jnd(param: str) -> float:
+    from measure import parameters as p
+
+    return {"edt_s": p.JND_EDT_RELATIVE, "t20_s": p.JND_T_RELATIVE, "t30_s": p.JND_T_RELATIVE,
+            "c50_db": p.JND_C50_DB, "c80_db": p.JND_C80_DB, "d50": p.JND_D50,
+            "ts_s": p.JND_TS_S}[param]
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ReportCell:
+    """One band and parameter of the fit report.
+
+    ``difference_jnd`` is (model − measured)/JND, with relative JNDs taken of the measured
+    value; None when either value is missing.
+    """
+
+    band: str
+    parameter: str
+    measured: float | None
+    modelled: float | None
+    difference_jnd: float | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"band": self.band, "parameter": self.parameter, "measured": self.measured,
+                "modelled": self.modelled, "difference_jnd": self.difference_jnd}
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class FitReport:
+    """Measured against modelled figures, band by band, in JNDs.
+
+    Attributes
+    ----------
+    cells : tuple of ReportCell
+        One per band and parameter of :data:`REPORT_PARAMETERS`.
+    bands : tuple of str
+        Band labels in order.
+    lsd_db : float or None
+        Log-spectral distance of the coloration fit (from the coloration stage).
+    fit_seconds : float
+        Wall time of the fit.
+    """
+
+    cells: tuple[ReportCell, ...]
+    bands: tuple[str, ...]
+    lsd_db: float | None
+    fit_seconds: float
+
+    def cell(self, band: str, parameter: str) -> ReportCell:
+        for c in self.cells:
+            if c.band == band and c.parameter == parameter:
+                return c
+        raise KeyError(f"no report cell for band {band!r}, parameter {parameter!r}")
+
+    def max_abs_jnd(self) -> dict[str, float | None]:
+        """Largest |difference| in JNDs per parameter (None if no band has both values)."""
+        out: dict[str, float | None] = {}
+        for key, _, _ in REPORT_PARAMETERS:
+            vals = [abs(c.difference_jnd) for c in self.cells
+                    if c.parameter == key and c.difference_jnd is not None]
+            out[key] = max(vals) if vals else None
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "bands": list(self.bands),
+            "parameters": [k for k, _, _ in REPORT_PARAMETERS],
+            "jnd": {k: {"value": _jnd(k), "kind": kind} for k, _, kind in REPORT_PARAMETERS},
+            "cells": [c.to_dict() for c in self.cells],
+            "max_abs_jnd": self.max_abs_jnd(),
+            "coloration_lsd_db": self.lsd_db,
+            "fit_seconds": self.fit_seconds,
+        }
+
+    def to_text(self) -> str:
+        """A fixed-width table: per band, measured / model / Δ in JNDs for each parameter."""
+        names = [(k, n) for k, n, _ in REPORT_PARAMETERS]
+        head = f"{'band':>6} " + " ".join(f"{n:>21}" for _, n in names)
+        sub = f"{'':>6} " + " ".join(f"{'meas':>7}{'model':>7}{'ΔJND':>7}" for _ in names)
+        lines = [head, sub]
+        for b in self.bands:
+            row = [f"{b:>6}"]
+            for k, _ in names:
+                c = self.cell(b, k)
+                row.append(_fmt(c.measured, k) + _fmt(c.modelled, k)
+                           + (f"{c.difference_jnd:7.2f}" if c.difference_jnd is not None
+                              else f"{'-':>7}"))
+            lines.append(" ".join(row))
+        worst = self.max_abs_jnd()
+        lines.append("max |Δ| in JNDs: " + ", ".join(
+            f"{n} {worst[k]:.2f}" if worst[k] is not None else f"{n} -" for k, n in names))
+        return "\n".join(lines)
+
+
+def _fmt(v: float | None, key: str) -> str:
+    if v is None:
+        return f"{'-':>7}"
+    if key.endswith("_s"):
+        return f"{v:7.3f}"
+    return f"{v:7.2f}"
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class FitResult:
+    """What :func:`fit_model` returns: the model and its report."""
+
+    model: RoomModel
+    report: FitReport
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"model": self.model.to_dict(), "report": self.report.to_dict()}
+
+
+def compare_figures(measured, modelled, *, lsd_db: float | None = None,
+                    fit_seconds: float = 0.0) -> FitReport:
+    """The fit report of two :class:`measure.parameters.RoomFigures` with the same bands."""
+    cells = []
+    labels = []
+    model_bands = {b.label: b for b in modelled.bands}
+    for mb in measured.bands:
+        labels.append(mb.label)
+        ob = model_bands.get(mb.label)
+        for key, _, kind in REPORT_PARAMETERS:
+            m = getattr(mb, key)
+            o = None if ob is None else getattr(ob, key)
+            diff = None
+            if m is not None and o is not None:
+                if kind == "relative":
+                    diff = (o / m - 1.0) / _jnd(key) if m > 0 else None
+                else:
+                    diff = (o - m) / _jnd(key)
+            cells.append(ReportCell(mb.label, key, m, o, diff))
+    return FitReport(tuple(cells), tuple(labels), lsd_db, fit_seconds)
+
+
+def _direct_sound(h: np.ndarray, fs: int) -> tuple[int, float, float]:
+    """Index, fractional time (s) and signed amplitude of the direct sound's peak."""
+    from measure._dsp import parabolic_peak
+    from measure.decay import onset_index
+
+    on = onset_index(h, fs)
+    w = max(1, int(0.001 * fs))
+    i = on + int(np.argmax(np.abs(h[on: on + w])))
+    pos = parabolic_peak(np.abs(h), i)
+    return i, pos / fs, float(h[i])
+
+
+def _band_signals(h: np.ndarray, fs: int, centers_hz: np.ndarray) -> np.ndarray:
+    """``h`` split by the late part's complementary band masks (zero phase), (bands, n)."""
+    from scipy.fft import irfft, next_fast_len, rfft
+
+    from measure.model.late import band_masks
+
+    n = h.size
+    n_fft = next_fast_len(n + int(0.02 * fs), real=True)
+    spec = rfft(h, n_fft)
+    masks = band_masks(centers_hz, np.arange(spec.size) * fs / n_fft)
+    return irfft(spec[np.newaxis, :] * masks, n=n_fft, axis=1)[:, :n]
+
+
+def _fill_missing(values: list[float | None], what: str) -> list[float]:
+    idx = [i for i, v in enumerate(values) if v is not None and v > 0]
+    if not idx:
+        raise FitError(f"no band of the impulse response has a measurable {what}; record a "
+                       "longer response or with more level above the noise")
+    x = np.arange(len(values))
+    return list(np.interp(x, idx, [values[i] for i in idx]))
+
+
+def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None = None,
+              source: dict | None = None) -> FitResult:
+    """Fit the compact room model to an impulse response and report how close it comes.
+
+    Parameters
+    ----------
+    h : array_like, shape (n,)
+        Measured impulse response (direct sound, its decay, some silence before).
+    fs : int, > 0, Hz
+    order : int, >= 1, optional
+        Order of the coloration filter; default: the smallest even order reaching the
+        coloration stage's error target.
+    n_echoes : int, >= 0, optional
+        Number of discrete echoes; default: as many as stand out of the diffuse background
+        (:func:`measure.model.echoes.find_echoes`'s gain and prominence criteria).
+    source : dict, optional
+        Written into the model's ``source`` (e.g. the file name).
+
+    Returns
+    -------
+    FitResult
+
+    Raises
+    ------
+    ParameterError
+        For a malformed ``h`` or option.
+    FitError
+        If no band has a measurable decay.
+    """
+    from measure.parameters import analyze_ir
+
+    t_start = time.perf_counter()
+    h = check_signal(h, "impulse response", ndim=(1,))
+    fs = check_fs(fs)
+    if order is not None and (isinstance(order, bool) or int(order) != order or order < 1):
+        raise ParameterError(f"order={order!r} must be a whole number >= 1 (e.g. 4 or 8)")
+    if n_echoes is not None and (isinstance(n_echoes, bool) or int(n_echoes) != n_echoes
+                                 or n_echoes < 0):
+        raise ParameterError(f"n_echoes={n_echoes!r} must be a whole number >= 0")
+
+    from measure.bands import filter_bands
+    from measure.model.render import render_early, render_model
+
+    measured = analyze_ir(h, fs, sti=False)
+    mixing_abs_s = _mixing_time(h, fs)
+    ech = _find_echoes(h, fs, n_echoes, mixing_abs_s)
+    t0 = float(ech.direct_time_s)
+    echoes = list(zip(ech.delays_s, ech.gains, strict=True))
+    coloration = _fit_coloration(h, fs, echoes, order)
+    mixing_s = None if mixing_abs_s is None else max(0.0, mixing_abs_s - t0)
+
+    bands = tuple(b.band for b in measured.bands)
+    centers = np.array([b.center_hz for b in bands])
+    t_target = _fill_missing([b.t30_s if b.t30_s is not None else
+                              (b.t20_s if b.t20_s is not None else b.edt_s)
+                              for b in measured.bands], "decay time")
+    shift = int(round(t0 * fs))
+    n = h.size
+    late = LateReverb(tuple(float(v) for v in centers), tuple(t_target), (0.0,) * centers.size,
+                      LATE_START_S, LATE_FADE_S, nominal_delays_s(max(t_target)))
+    base = RoomModel(fit_fs=fs, direct_delay_s=t0,
+                     direct_gain=1.0 if coloration is not None else float(ech.direct_gain),
+                     coloration=coloration, echoes=tuple(echoes), late=late,
+                     mixing_time_s=mixing_s, source=dict(source or {}))
+    keep = kept_bands(late, fs)
+    if not np.all(keep):
+        raise FitError(f"an analysis band lies above 0.45·fs at fs={fs}; this is a bug")
+
+    # What the analysis sees, band by band (time-reversed filtering, as for the decay figures)
+    f_meas = filter_bands(h, fs, bands, mode=MATCH_FILTERING)
+    f_early = filter_bands(render_early(base, fs, n), fs, bands, mode=MATCH_FILTERING)
+    horizon_s = (n - shift) / fs
+    segs = _band_segments(measured, t0, horizon_s)
+    want = []
+    for i, e in enumerate(segs):
+        idx = np.clip(np.round(e * fs).astype(int) + shift, 0, n)
+        sm = np.add.reduceat(f_meas[i, : idx[-1]] ** 2, idx[:-1])
+        se = np.add.reduceat(f_early[i, : idx[-1]] ** 2, idx[:-1])
+        # the late part must supply what the direct sound and echoes do not
+        want.append((idx, np.maximum(sm - se, 1e-3 * sm)))
+    # initial level: the measured band energy after the direct-sound window, less the early part
+    stop = np.array([min(n, int(round(measured.onset_index + bf.decay.truncation_s * fs)))
+                     for bf in measured.bands])
+    start = shift + int(round(LATE_START_S * fs))
+    levels = []
+    for i in range(centers.size):
+        e = float(np.sum(f_meas[i, start: stop[i]] ** 2) - np.sum(f_early[i, start: stop[i]] ** 2))
+        levels.append(10.0 * math.log10(max(e, 1e-12 * float(np.sum(f_meas[i] ** 2)) + 1e-300)))
+    late = late.replace(level_db=tuple(levels))
+
+    t60 = np.array(t_target, dtype=np.float64)
+    lo, hi = t60 / 1.6, t60 * 1.6
+    model = base
+    modelled = None
+    t_axis = np.arange(n - shift) / fs
+    for _ in range(N_CALIBRATION_PASSES):
+        late = late.replace(t60_s=tuple(float(v) for v in t60), envelope_edges_s=(),
+                            envelope_db=())
+        lb = render_late_bands(late, fs, n - shift)
+        # One power gain per segment: start from the ratio of wanted to rendered energy, then
+        # correct by what the full rendering (all bands through every analysis filter, with
+        # the filters' smearing across segment edges) still misses.
+        env = [np.zeros(e.size - 1) for e in segs]
+        for _ in range(N_ENVELOPE_STEPS):
+            full = np.zeros(n)
+            for i in range(centers.size):
+                full[shift:] += lb[i] * envelope_gain(t_axis, segs[i], env[i])
+            f_late = filter_bands(full, fs, bands, mode=MATCH_FILTERING)
+            for i, (idx, w) in enumerate(want):
+                got = np.add.reduceat(f_late[i, : idx[-1]] ** 2, idx[:-1])
+                env[i] = np.clip(env[i] + 10.0 * np.log10(w / np.maximum(got, 1e-300)),
+                                 *ENVELOPE_LIMITS_DB)
+        late = late.replace(envelope_edges_s=tuple(tuple(float(v) for v in e) for e in segs),
+                            envelope_db=tuple(tuple(float(v) for v in e) for e in env))
+        model = _with_late(base, late)
+        modelled = analyze_ir(render_model(model, fs, n / fs), fs, sti=False)
+        for i, (mb, ob) in enumerate(zip(measured.bands, modelled.bands, strict=True)):
+            if mb.t30_s is not None and ob.t30_s is not None:
+                t60[i] = float(np.clip(t60[i] * mb.t30_s / ob.t30_s, lo[i], hi[i]))
+    assert modelled is not None
+    report = compare_figures(measured, modelled,
+                             lsd_db=None if coloration is None else float(coloration.lsd_db),
+                             fit_seconds=time.perf_counter() - t_start)
+    return FitResult(model, report)
+
+
+def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
+    """Per band, segment edges (s re the direct sound) for the envelope correction.
+
+    Edges where the measured band EDC crosses 0, −ENVELOPE_STEP_DB, −2·ENVELOPE_STEP_DB ...
+    down to −ENVELOPE_DEPTH_DB (so each segment holds a similar share of the decay that EDT
+    and the clarity figures see), plus the 50 and 80 ms splits of C50/C80 (ISO 3382-1 A.2.3),
+    merged where closer than the band filter's time resolution (ENVELOPE_MIN_BT / bandwidth).
+    """
+    fs = measured.fs
+    lead = measured.onset_index / fs - t0
+    out = []
+    for bf in measured.bands:
+        edc = bf.decay.edc_db
+        marks = [LATE_START_S, *ENVELOPE_SPLITS_S]
+        for level in np.arange(-ENVELOPE_STEP_DB, -ENVELOPE_DEPTH_DB - 1e-9, -ENVELOPE_STEP_DB):
+            below = np.flatnonzero(edc <= level)
+            if below.size:
+                marks.append(below[0] / fs + lead)
+        width = max(ENVELOPE_MIN_WIDTH_S, ENVELOPE_MIN_BT / (bf.band.f_hi_hz - bf.band.f_lo_hz))
+        marks = sorted(m for m in set(marks) if LATE_START_S <= m < min(horizon_s,
+                                                                         ENVELOPE_MAX_S))
+        edges = [marks[0]]
+        for m in marks[1:]:
+            if m - edges[-1] >= width:
+                edges.append(m)
+        if len(edges) < 2:
+            edges.append(min(horizon_s, edges[0] + width))
+        out.append(np.array(edges))
+    return out
+
+
+def _with_late(model: RoomModel, late: LateReverb) -> RoomModel:
+    return RoomModel(fit_fs=model.fit_fs, direct_delay_s=model.direct_delay_s,
+                     direct_gain=model.direct_gain, coloration=model.coloration,
+                     echoes=model.echoes, late=late, mixing_time_s=model.mixing_time_s,
+                     source=model.source, i3dl2=model.i3dl2)
+
+
+def _find_echoes(h: np.ndarray, fs: int, n_echoes: int | None, mixing_abs_s: float | None):
+    """Direct sound and echoes (measure.model.echoes), searched up to the mixing time."""
+    from measure.model.echoes import find_echoes
+
+    t_direct = int(np.argmax(np.abs(h))) / fs
+    span = 0.1 if mixing_abs_s is None else float(np.clip(mixing_abs_s - t_direct, 0.005, 0.1))
+    return find_echoes(h, fs, n_echoes=n_echoes, max_delay_s=span)
+
+
+def _fit_coloration(h: np.ndarray, fs: int, echoes: list[tuple[float, float]],
+                    order: int | None):
+    from measure.model.coloration import fit_coloration
+
+    first = min((d for d, _ in echoes), default=0.005)
+    window_s = float(np.clip(0.9 * first, 0.001, 0.005))
+    return fit_coloration(h, fs, order=order, window_s=window_s)
+
+
+def _mixing_time(h: np.ndarray, fs: int) -> float | None:
+    """Mixing time re the start of ``h`` (measure.model.mixing); None if never reached."""
+    from measure.model.mixing import mixing_time
+
+    try:
+        return float(mixing_time(h, fs))
+    except FitError:
+        return None
