@@ -406,7 +406,7 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
 
     n_fft = _fft_len(n_rec + spec.n_sweep + 1)
     rows = {c: i for i, c in enumerate(used)}
-    Y = rfft(y2[used], n_fft, axis=-1)
+    Y = rfft(y2 if used == list(range(n_ch)) else y2[used], n_fft, axis=-1)
     if reference_channel is not None:
         timing = reference_channel
     else:
@@ -415,8 +415,14 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
 
     # 1–2: locate the sweeps with the nominal inverse
     inv = inverse_spectrum(spec, n_fft)
-    d = {timing: irfft(Y[rows[timing]] * inv, n_fft)}
+    Y[rows[timing]] *= inv  # each row is deconvolved once, in place
+    d = {timing: irfft(Y[rows[timing]], n_fft)}
     d_t = d[timing]
+    for c in channels:  # every channel deconvolved now, so the spectra can go
+        if c not in d:
+            Y[rows[c]] *= inv
+            d[c] = irfft(Y[rows[c]], n_fft)
+    del Y, inv
     starts = _find_sweeps(d_t, sweep, n_rec)
     if starts.size < spec.repeats:
         warnings.append(
@@ -467,8 +473,6 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     origins = fine - pre * stretch
     h_rows, harm_rows, arrivals = [], [], []
     for c in channels:
-        if c not in d:
-            d[c] = irfft(Y[rows[c]] * inv, n_fft)
         row = d[c]
         h_rows.append(_read_average(row, origins, n_len, sweep, eps, unstretch=unstretch,
                                     trim_pre=pre))
@@ -621,7 +625,12 @@ def _chirp_sum(c: np.ndarray, m: int, alpha: float) -> np.ndarray:
     b = np.zeros(n, dtype=np.complex128)
     b[:m] = np.conj(chirp[:m])
     b[n - K + 1:] = np.conj(chirp[1:K][::-1])
-    return ifft(fft(a) * fft(b))[:m] * chirp[:m]
+    a = fft(a, overwrite_x=True)
+    a *= fft(b, overwrite_x=True)
+    del b
+    out = ifft(a, overwrite_x=True)[:m]
+    out *= chirp[:m]
+    return out
 
 
 def _trim_end(h: np.ndarray, pre: int, fs: int) -> int:

@@ -255,21 +255,25 @@ def sweep_signal(spec: SweepSpec, *, stretch: float = 1.0) -> np.ndarray:
         raise ParameterError(f"stretch={stretch!r} must be positive")
     fs_eff = spec.fs * stretch
     n = int(round(spec.n_sweep * stretch))
-    t = np.arange(n) / fs_eff
     L = spec.rate_constant_s
-    # expm1 keeps the phase accurate near t = 0; the phase is reduced mod 2π before sin().
-    phase = 2.0 * math.pi * spec.f1_hz * L * np.expm1(t / L)
-    x = np.sin(np.mod(phase, 2.0 * math.pi))
-    w = np.ones(n)
-    if spec.fade_in_s > 0:
-        u = t / spec.fade_in_s
-        m = u < 1.0
-        w[m] = 0.5 - 0.5 * np.cos(math.pi * u[m])
-    if spec.fade_out_s > 0:
-        u = (spec.duration_s - t) / spec.fade_out_s
-        m = u < 1.0
-        w[m] = np.minimum(w[m], 0.5 - 0.5 * np.cos(math.pi * np.clip(u[m], 0.0, 1.0)))
-    return spec.peak * x * w
+    # in place, to keep long sweeps light: t → phase → sin
+    x = np.arange(n, dtype=np.float64)
+    x /= fs_eff * L
+    np.expm1(x, out=x)  # expm1 keeps the phase accurate near t = 0
+    x *= 2.0 * math.pi * spec.f1_hz * L
+    np.mod(x, 2.0 * math.pi, out=x)  # reduce before sin() for accuracy late in the sweep
+    np.sin(x, out=x)
+    x *= spec.peak
+    n_in = min(int(math.ceil(spec.fade_in_s * fs_eff)), n)
+    if spec.fade_in_s > 0 and n_in > 0:
+        u = np.arange(n_in) / fs_eff / spec.fade_in_s
+        x[:n_in] *= 0.5 - 0.5 * np.cos(math.pi * np.minimum(u, 1.0))
+    n_out = min(int(math.ceil(spec.fade_out_s * fs_eff)) + 1, n)
+    if spec.fade_out_s > 0 and n_out > 0:
+        t = np.arange(n - n_out, n) / fs_eff
+        u = np.clip((spec.duration_s - t) / spec.fade_out_s, 0.0, 1.0)
+        x[n - n_out:] *= 0.5 - 0.5 * np.cos(math.pi * u)
+    return x
 
 
 def make_sweep(spec: SweepSpec) -> Sweep:
@@ -292,17 +296,23 @@ def make_sweep(spec: SweepSpec) -> Sweep:
 
 def _regularisation_weight(f_hz: np.ndarray, f1_hz: float, f2_hz: float, nyquist_hz: float
                            ) -> np.ndarray:
-    """ε(f) shape: IN_BAND inside [f1, f2], OUT_OF_BAND outside, raised-cosine steps in log f."""
+    """ε(f) shape: IN_BAND inside [f1, f2], OUT_OF_BAND outside, raised-cosine steps in log f.
+
+    Only the bins outside [f1, f2] are computed (memory stays at one array for long FFTs).
+    """
     lo, hi = math.log2(IN_BAND_REGULARISATION), math.log2(OUT_OF_BAND_REGULARISATION)
-    with np.errstate(divide="ignore"):
-        lf = np.log2(np.maximum(f_hz, 1e-12))
-    below = np.clip((math.log2(f1_hz) - lf) / TRANSITION_OCTAVES, 0.0, 1.0)
-    above = np.clip((lf - math.log2(f2_hz)) / TRANSITION_OCTAVES, 0.0, 1.0)
-    if f2_hz >= nyquist_hz * 0.999:  # a sweep up to Nyquist has no band above it
-        above = np.zeros_like(above)
-    step = np.maximum(below, above)
-    ramp = 0.5 - 0.5 * np.cos(math.pi * step)
-    return 2.0 ** (lo + (hi - lo) * ramp)
+    w = np.full(f_hz.shape, IN_BAND_REGULARISATION)
+
+    def step(sel: np.ndarray, octaves: np.ndarray) -> None:
+        u = np.clip(octaves / TRANSITION_OCTAVES, 0.0, 1.0)
+        w[sel] = 2.0 ** (lo + (hi - lo) * (0.5 - 0.5 * np.cos(math.pi * u)))
+
+    below = np.nonzero(f_hz < f1_hz)[0]
+    step(below, math.log2(f1_hz) - np.log2(np.maximum(f_hz[below], 1e-12)))
+    if f2_hz < nyquist_hz * 0.999:  # a sweep up to Nyquist has no band above it
+        above = np.nonzero(f_hz > f2_hz)[0]
+        step(above, np.log2(f_hz[above]) - math.log2(f2_hz))
+    return w
 
 
 def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np.ndarray:
@@ -330,11 +340,15 @@ def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np
     if n_fft < x.size:
         raise ParameterError(f"n_fft={n_fft} is shorter than the sweep ({x.size} samples)")
     X = rfft(x, n_fft)
-    power = X.real**2 + X.imag**2
+    del x
+    power = X.real * X.real
+    power += X.imag * X.imag
     # The weight's shape is taken on the player's frequency grid: a clock stretch of a few
     # hundred ppm moves its smooth steps by a negligible fraction of their width.
-    eps = float(power.max()) * _weight_on_grid(n_fft, spec.fs, spec.f1_hz, spec.f2_hz)
-    return np.conj(X) / (power + eps)
+    power += float(power.max()) * _weight_on_grid(n_fft, spec.fs, spec.f1_hz, spec.f2_hz)
+    np.conjugate(X, out=X)
+    X /= power
+    return X
 
 
 @functools.lru_cache(maxsize=8)

@@ -68,7 +68,7 @@ class VirtualRoom:
     def __post_init__(self) -> None:
         if len(self.band_centers_hz) != len(self.rt_s) or not self.rt_s:
             raise ParameterError("give one reverberation time per band centre")
-        if any(b <= a for a, b in zip(self.band_centers_hz, self.band_centers_hz[1:])):
+        if any(b <= a for a, b in zip(self.band_centers_hz, self.band_centers_hz[1:], strict=False)):
             raise ParameterError("band centres must ascend")
         for t in self.rt_s:
             check_positive(t, "reverberation time", unit="s")
@@ -142,7 +142,7 @@ def room_ir(room: VirtualRoom, fs: int, *, seed: int = 0) -> np.ndarray:
     build = np.clip((t - onset) / 0.002, 0.0, 1.0)  # 2 ms raised-cosine build-up
     build = 0.5 - 0.5 * np.cos(math.pi * build)
     tail = np.zeros(n)
-    for mask, rt in zip(masks, room.rt_s):
+    for mask, rt in zip(masks, room.rt_s, strict=True):
         band_noise = np.fft.irfft(noise_spec * mask, n_fft)[:n]
         env = np.exp(-0.5 * DECAY_60DB * np.maximum(t, 0.0) / rt)  # amplitude: half the energy rate
         tail += band_noise * env
