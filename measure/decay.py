@@ -411,11 +411,25 @@ def fit_decay(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
         return None
     if i1 - i0 < 3:
         return None
-    x = np.arange(i0, i1, dtype=np.float64) / fs
-    _, b, r2 = _linfit(x, L[i0:i1])
+    b, r2 = _uniform_slope(L[i0:i1])
+    b *= fs  # dB per sample -> dB per second
     if not (b < 0):
         return None
     return -60.0 / b, r2
+
+
+def _uniform_slope(y: np.ndarray) -> tuple[float, float]:
+    """Least-squares slope (per sample) and r² of y against its index, in three passes."""
+    n = y.shape[0]
+    j = np.arange(n, dtype=np.float64)
+    j -= (n - 1) / 2.0
+    sjj = n * (n * n - 1.0) / 12.0  # Σ j² for centred indices (closed form)
+    sjy = float(j @ y)
+    ym = float(y.sum()) / n
+    syy = float(y @ y) - n * ym * ym
+    b = sjy / sjj
+    r2 = (sjy * sjy) / (sjj * syy) if syy > 0 else 1.0
+    return b, min(r2, 1.0)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
