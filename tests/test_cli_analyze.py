@@ -1,0 +1,165 @@
+"""``measure analyze``: the JSON scripting contract, the text report and input errors."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from measure import cli
+from measure.audio_io import write_audio, write_json
+from measure.decay import DECAY_CONSTANT
+from measure.parameters import CONTRACT_KEYS
+
+FS = 48000
+TOP_KEYS = {"sample_rate", "bands", "broadband", "single_numbers", "sti"}
+
+
+@pytest.fixture
+def only_analyze(monkeypatch):
+    # The tests are about this one command: load only its module, so that another command
+    # being edited elsewhere cannot break them. main() is otherwise the real one.
+    monkeypatch.setattr(cli, "COMMANDS", ("measure.cli.cmd_analyze",))
+
+
+def _ir(rng, *, t60=0.8, snr_db=60.0, n_channels=1):
+    t = np.arange(int(2.0 * FS)) / FS
+    rows = []
+    for _ in range(n_channels):
+        h = np.zeros(t.size + 480)
+        h[480] = 0.5
+        h[720:] += 0.1 * rng.standard_normal(t.size - 240) * np.exp(
+            -DECAY_CONSTANT * t[:-240] / (2 * t60))
+        h += 0.1 * 10 ** (-snr_db / 20) * rng.standard_normal(h.size)
+        rows.append(h)
+    return np.array(rows)
+
+
+def _run(capsys, argv):
+    code = cli.main(argv)
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def test_json_has_exactly_the_contract_keys(tmp_path, rng, capsys, only_analyze):
+    path = tmp_path / "ir.wav"
+    write_audio(path, _ir(rng), FS)
+    code, out, err = _run(capsys, ["analyze", str(path), "--json"])
+    assert code == 0, err
+    doc = json.loads(out)
+    assert TOP_KEYS <= set(doc) and set(doc) - TOP_KEYS == {"details"}
+    assert "latency_s" not in doc and "drift_ppm" not in doc  # an IR, not a capture
+    assert doc["sample_rate"] == FS
+    assert [b["label"] for b in doc["bands"]] == ["63", "125", "250", "500", "1k", "2k", "4k",
+                                                  "8k"]
+    for b in doc["bands"] + [doc["broadband"]]:
+        assert set(b) == set(CONTRACT_KEYS), b["label"]
+        assert isinstance(b["flags"], list)
+        for key in CONTRACT_KEYS[2:-1]:
+            assert b[key] is None or isinstance(b[key], float)
+            if b[key] is None:
+                assert b["flags"], (b["label"], key)
+    # exact mid-band frequency (IEC 61260-1: 1000·10^(0.3k)), nominal label
+    assert doc["bands"][1]["center_hz"] == pytest.approx(125.8925, abs=1e-4)
+    assert doc["broadband"]["label"] == "broadband" and doc["broadband"]["center_hz"] is None
+    assert isinstance(doc["sti"], float)
+
+
+def test_third_octaves_and_channel(tmp_path, rng, capsys, only_analyze):
+    path = tmp_path / "ir2.wav"
+    x = _ir(rng, n_channels=2)
+    x[1] *= 0.5
+    write_audio(path, x, FS)
+    code, out, _ = _run(capsys, ["analyze", str(path), "--json", "--bands", "third",
+                                 "--channel", "2"])
+    assert code == 0
+    doc = json.loads(out)
+    assert len(doc["bands"]) == 24 and doc["bands"][0]["label"] == "50"
+    assert doc["bands"][-1]["label"] == "10k"
+
+
+def test_text_report_shows_nulls_and_why(tmp_path, rng, capsys, only_analyze):
+    # decay start only 30 dB above the noise: T20 and T30 cannot be measured (ISO 3382-1 5.3.3)
+    path = tmp_path / "noisy.wav"
+    write_audio(path, _ir(rng, snr_db=30.0), FS)
+    code, out, _ = _run(capsys, ["analyze", str(path)])
+    assert code == 0
+    assert "Band" in out and "(s)" in out and "(dB)" in out and "(ms)" in out
+    assert "—" in out
+    assert "T30 needs 45 dB of decay above the noise" in out
+    assert "Single numbers" in out and "STI" in out
+    # columns line up: every table row has the same width as the header
+    lines = out.splitlines()
+    i = next(k for k, ln in enumerate(lines) if ln.strip().startswith("Band"))
+    width = len(lines[i])
+    assert all(len(lines[i + 3 + j]) == width for j in range(8))
+
+
+def test_capture_with_sweep_adds_latency_and_drift(tmp_path, capsys, only_analyze):
+    from measure.sweep import SweepSpec, make_sweep
+    from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
+
+    room = next(r for r in DEMO_ROOMS if r.name == "office")
+    spec = SweepSpec(fs=FS, f1_hz=20.0, f2_hz=FS / 2, duration_s=3.0, gap_s=2.0,
+                     lead_in_s=0.3, level_dbfs=-6.0)
+    sweep = make_sweep(spec)
+    write_audio(tmp_path / "sweep.wav", sweep.program, FS)
+    write_json(tmp_path / "sweep.json", sweep.sidecar())
+    y = virtual_take(sweep.program, FS, room_ir(room, FS, seed=1), latency_s=0.02,
+                     drift_ppm=10.0, noise_dbfs=-80.0, seed=2)
+    write_audio(tmp_path / "capture.wav", y, FS)
+    code, out, err = _run(capsys, ["analyze", str(tmp_path / "capture.wav"), "--sweep",
+                                   str(tmp_path / "sweep.wav"), "--json"])
+    assert code == 0, err
+    doc = json.loads(out)
+    assert TOP_KEYS | {"latency_s", "drift_ppm", "details"} == set(doc)
+    # the virtual take's drift (derived: it is what the take was made with); the recovery's
+    # own accuracy is about 1 ppm (measurement.md §1.6), 3 ppm leaves room for this short sweep
+    assert doc["drift_ppm"] == pytest.approx(10.0, abs=3.0)
+    assert doc["latency_s"] == pytest.approx(0.02 + room.direct_delay_s, abs=2e-4)
+    assert math.isfinite(doc["bands"][4]["t30_s"])
+
+
+@pytest.mark.parametrize("argv_tail, message", [
+    (["missing.wav"], "error: .*missing.wav does not exist"),
+    (["ir.wav", "--channel", "3"], "error: --channel 3 does not exist: INPUT has 1 channel"),
+    (["ir.wav", "--sweep", "nosidecar.wav"], "error: .*sweep sidecar .* is missing"),
+    (["notaudio.wav"], "error: cannot read .*notaudio.wav as audio"),
+    (["short.wav"], "error: the impulse response is only 2 ms long"),
+])
+def test_bad_inputs_give_error_and_exit_2(tmp_path, rng, capsys, only_analyze, monkeypatch,
+                                          argv_tail, message):
+    import re
+
+    monkeypatch.chdir(tmp_path)
+    write_audio(tmp_path / "ir.wav", _ir(rng), FS)
+    write_audio(tmp_path / "nosidecar.wav", np.zeros(FS), FS)
+    (tmp_path / "notaudio.wav").write_text("this is not a wave file")
+    write_audio(tmp_path / "short.wav", np.ones(96), FS)
+    code, out, err = _run(capsys, ["analyze", *argv_tail])
+    assert code == 2
+    assert out == ""
+    assert err.count("\n") == 1 and re.match(message, err), err
+
+
+def test_bad_band_choice_is_a_usage_error(tmp_path, capsys, only_analyze):
+    with pytest.raises(SystemExit) as exc:
+        cli.main(["analyze", "x.wav", "--bands", "fifth"])
+    assert exc.value.code == 2
+    assert "error: argument --bands: invalid choice" in capsys.readouterr().err
+
+
+def test_cli_default_bands_match_library_default():
+    # STYLE.md §9: the CLI defaults match the library defaults.
+    import argparse
+    import inspect
+
+    from measure.cli import cmd_analyze
+    from measure.parameters import analyze_ir
+
+    p = argparse.ArgumentParser()
+    cmd_analyze.add_arguments(p)
+    args = p.parse_args(["x.wav"])
+    assert args.bands == inspect.signature(analyze_ir).parameters["bands"].default
