@@ -438,14 +438,14 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
             eps = _drift_from_phase(d_t, _relocate(np.abs(d_t), int(starts[0]), sweep, fs),
                                     sweep, 0.0)
     radius = _search_radius(sweep, fs)
-    for _ in range(3):
-        lo = int(starts[0]) - 2 * radius
+    lo = int(starts[0]) - 2 * radius
+    for attempt in range(3):  # w always belongs to the final eps
         w = _read_average(d_t, np.array([float(lo)]), 4 * radius, sweep, eps, unstretch=False)
         p_w = _relocate(np.abs(w), 2 * radius, sweep, fs)
         if not (correct_drift and starts.size == 1):
             break
         resid = _drift_from_phase(w, p_w, sweep, eps)
-        if abs(resid) < 0.05e-6:
+        if abs(resid) < 0.05e-6 or attempt == 2:
             break
         eps += resid
     stretch = 1.0 + eps
