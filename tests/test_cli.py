@@ -58,7 +58,7 @@ def test_sweep_writes_the_file_and_a_sidecar_that_rebuilds_it_bit_for_bit(sweep_
 def test_ir_writes_a_float_wav_and_its_json(tmp_path, sweep_file, capture_file, capsys):
     out = tmp_path / "ir.wav"
     code, stdout, _ = run(["ir", str(capture_file), "--sweep", str(sweep_file), "--out",
-                           str(out), "--json"], capsys)
+                           str(out), "--json", "--save-harmonics"], capsys)
     assert code == 0
     info = sf.info(out)
     assert info.subtype == "FLOAT" and info.samplerate == FS
@@ -68,6 +68,8 @@ def test_ir_writes_a_float_wav_and_its_json(tmp_path, sweep_file, capture_file, 
         assert key in side
     assert side["drift_ppm"] == pytest.approx(20.0, abs=2.0)  # issue: drift within 2 ppm
     assert json.loads(stdout)["drift_ppm"] == side["drift_ppm"]
+    harm = tmp_path / "ir.harmonics.wav"
+    assert sf.info(harm).channels == 4 and side["sources"]["harmonics_file"] == harm.name
 
 
 def _write(path: Path, x: np.ndarray, fs: int = FS, subtype: str = "FLOAT") -> Path:

@@ -26,6 +26,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                         "(a loopback cable): timing comes from it exactly")
     p.add_argument("--harmonics", type=int, default=4, metavar="K",
                    help="harmonic-distortion responses to analyse (orders 2..K+1, default 4)")
+    p.add_argument("--save-harmonics", action="store_true",
+                   help="also write IR.harmonics.wav: the harmonic-distortion responses of the "
+                        "first channel, one channel per order (2, 3, ...)")
     p.add_argument("--pre", type=float, default=None, metavar="S",
                    help="seconds kept before the direct sound (default: two periods of the "
                         "sweep's start frequency, at least 0.005)")
@@ -55,7 +58,14 @@ def run(args: argparse.Namespace) -> int:
         warn(w)
     sources = {"capture": str(args.capture), "capture_sha256": audio_io.file_sha256(args.capture),
                "sweep": str(args.sweep), "sweep_sha256": audio_io.file_sha256(args.sweep)}
-    wav, side = audio_io.write_ir(args.out, ir, sweep=sweep, sources=sources)
+    from pathlib import Path
+
+    out = Path(args.out)
+    if args.save_harmonics and ir.harmonic_h.shape[1]:
+        harm = out.with_name(out.stem + ".harmonics.wav")
+        audio_io.write_audio(harm, ir.harmonic_h[0], ir.fs, subtype="FLOAT")
+        sources = {**sources, "harmonics_file": harm.name}
+    wav, side = audio_io.write_ir(out, ir, sweep=sweep, sources=sources)
     if args.json:
         print_json(ir.to_dict())
     else:
