@@ -73,7 +73,7 @@ def _make_inputs(folder: Path) -> tuple[Path, Path]:
 
     # 0.5 s lead-in + 7 s sweep + 2.5 s gap = 10 s at 48 kHz
     spec = SweepSpec(fs=FS, f1_hz=20.0, f2_hz=FS / 2, duration_s=7.0, repeats=1, gap_s=2.5,
-                     lead_in_s=0.5, level_dbfs=-6.0)
+                     lead_in_s=0.5, level_dbfs=-12.0)
     sweep = make_sweep(spec)
     sweep_wav = folder / "sweep.wav"
     write_audio(sweep_wav, sweep.program, FS, subtype="FLOAT")
@@ -83,12 +83,13 @@ def _make_inputs(folder: Path) -> tuple[Path, Path]:
     t = np.arange(int(2.0 * FS)) / FS
     h = np.zeros(t.size + 240)
     h[120] = 0.5
-    h[360:] += 0.1 * rng.standard_normal(t.size - 120) * np.exp(-6.9078 * t[:-120] / 1.2)
+    h[360:] += 0.01 * rng.standard_normal(t.size - 120) * np.exp(-6.9078 * t[:-120] / 1.2)
     from scipy.signal import fftconvolve
 
     y = fftconvolve(sweep.program, h)[: sweep.program.size]
     y = np.roll(y, 960)  # 20 ms of latency
-    y += 10 ** (-70 / 20) * rng.standard_normal(y.size)
+    y += 10 ** (-80 / 20) * rng.standard_normal(y.size)
+    assert np.max(np.abs(y)) < 0.9  # no clipping
     capture = folder / "capture.wav"
     write_audio(capture, y, FS, subtype="FLOAT")
     return capture, sweep_wav

@@ -424,9 +424,11 @@ def _uniform_slope(y: np.ndarray) -> tuple[float, float]:
     j = np.arange(n, dtype=np.float64)
     j -= (n - 1) / 2.0
     sjj = n * (n * n - 1.0) / 12.0  # Σ j² for centred indices (closed form)
-    sjy = float(j @ y)
+    # einsum, not @: a BLAS dot may wake worker threads, which costs milliseconds per call on a
+    # busy machine (measured: 23 ms instead of 0.05 ms for 120 000 samples)
+    sjy = float(np.einsum("i,i->", j, y))
     ym = float(y.sum()) / n
-    syy = float(y @ y) - n * ym * ym
+    syy = float(np.einsum("i,i->", y, y)) - n * ym * ym
     b = sjy / sjj
     r2 = (sjy * sjy) / (sjj * syy) if syy > 0 else 1.0
     return b, min(r2, 1.0)

@@ -194,10 +194,10 @@ def mtf_from_band(h_band: np.ndarray, fs: int, *, stop_index: int | None = None,
     eb = e[: nb * q].reshape(nb, q).sum(axis=1)
     rest = e[nb * q:]
     w = 2.0 * np.pi * MODULATION_FREQUENCIES_HZ
-    num = np.exp(-1j * np.outer(w, t_b)) @ eb
+    num = np.einsum("ij,j->i", np.exp(-1j * np.outer(w, t_b)), eb)  # no BLAS threads
     if rest.size:
         t_r = (nb * q + np.arange(rest.size)) / fs
-        num = num + np.exp(-1j * np.outer(w, t_r)) @ rest
+        num = num + np.einsum("ij,j->i", np.exp(-1j * np.outer(w, t_r)), rest)
     den = float(e.sum())
     if tail_a_db is not None and tail_b_db_per_s is not None and tail_b_db_per_s < 0:
         t1 = n1 / fs

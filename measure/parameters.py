@@ -250,7 +250,7 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
     d50 = (total - tail(k50)) / total
     # Ts: Σ t e over the measured part plus the analytic tail Σ t a r^(n-n1)
     t = np.arange(n1) / fs
-    mom = float(t @ e[:n1])
+    mom = float(np.einsum("i,i->", t, e[:n1]))  # not @: see decay._uniform_slope
     if a_db is not None and b_db is not None:
         r = 10.0 ** (b_db / (10.0 * fs))
         a1 = 10.0 ** ((a_db + b_db * n1 / fs) / 10.0)
