@@ -86,12 +86,19 @@ ENVELOPE_DEPTH_DB = 20.0
 ENVELOPE_MIN_BT = 3.0
 ENVELOPE_MIN_WIDTH_S = 0.008
 ENVELOPE_MAX_S = 1.5
+#: EDT tilt (see fit_model): first step in dB per unit of ln(EDT_model/EDT_measured), its
+#: limit, and the relative EDT error below which a band is left alone.
+TILT_GAIN_DB = 15.0
+TILT_LIMIT_DB = 12.0
+EDT_TOLERANCE = 0.01
+#: Damping of the envelope's fixed-point steps (1: full step).
+ENVELOPE_DAMPING = 1.0
 #: How the bands are filtered for the envelope fit (measure.bands.filter_bands mode).
 MATCH_FILTERING = "reversed"
 #: Envelope gains are kept within these limits, dB.
 ENVELOPE_LIMITS_DB = (-40.0, 20.0)
 #: Calibration passes (render, re-analyse, adjust).
-N_CALIBRATION_PASSES = 3
+N_CALIBRATION_PASSES = 4
 #: Fixed-point steps of the envelope fit per pass.
 N_ENVELOPE_STEPS = 4
 
@@ -357,6 +364,20 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
 
     t60 = np.array(t_target, dtype=np.float64)
     lo, hi = t60 / 1.6, t60 * 1.6
+    # EDT: the early decay is set by where the band's EDC crosses -10 dB, often on a flat
+    # stretch just after the direct sound, so a fraction of a dB there moves EDT by many JNDs.
+    # A tilt of the wanted early energy about that crossing (less before, more after) is
+    # tuned per band, secant-wise, on the re-analysed EDT.
+    t10 = _level_times(measured, t0, -10.0)
+    tilt_shape = []
+    for i, e in enumerate(segs):
+        c = 0.5 * (e[1:] + e[:-1])
+        ref = t10[i] if t10[i] is not None else c[-1]
+        x = (c - ref) / max(ref, 0.01)
+        # −½ before the crossing rising to +½ at twice its time, back to 0 at three times
+        tilt_shape.append(0.5 * np.clip(x, -1.0, 1.0) - 0.5 * np.clip(x - 1.0, 0.0, 1.0))
+    tilt = np.zeros(centers.size)
+    tilt_history: list[list[tuple[float, float]]] = [[] for _ in range(centers.size)]
     model = base
     modelled = None
     t_axis = np.arange(n - shift) / fs
@@ -375,8 +396,9 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
             f_late = filter_bands(full, fs, bands, mode=MATCH_FILTERING)
             for i, (idx, w) in enumerate(want):
                 got = np.add.reduceat(f_late[i, : idx[-1]] ** 2, idx[:-1])
-                env[i] = np.clip(env[i] + 10.0 * np.log10(w / np.maximum(got, 1e-300)),
-                                 *ENVELOPE_LIMITS_DB)
+                w = w * 10.0 ** (tilt[i] * tilt_shape[i] / 10.0)
+                step = ENVELOPE_DAMPING * 10.0 * np.log10(w / np.maximum(got, 1e-300))
+                env[i] = np.clip(env[i] + step, *ENVELOPE_LIMITS_DB)
         late = late.replace(envelope_edges_s=tuple(tuple(float(v) for v in e) for e in segs),
                             envelope_db=tuple(tuple(float(v) for v in e) for e in env))
         model = _with_late(base, late)
@@ -384,11 +406,39 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
         for i, (mb, ob) in enumerate(zip(measured.bands, modelled.bands, strict=True)):
             if mb.t30_s is not None and ob.t30_s is not None:
                 t60[i] = float(np.clip(t60[i] * mb.t30_s / ob.t30_s, lo[i], hi[i]))
+            if mb.edt_s is not None and ob.edt_s is not None and mb.edt_s > 0 and ob.edt_s > 0:
+                tilt[i] = _next_tilt(tilt_history[i], tilt[i], math.log(ob.edt_s / mb.edt_s),
+                                     EDT_TOLERANCE, TILT_GAIN_DB)
     assert modelled is not None
     report = compare_figures(measured, modelled,
                              lsd_db=None if coloration is None else float(coloration.lsd_db),
                              fit_seconds=time.perf_counter() - t_start)
     return FitResult(model, report)
+
+
+def _level_times(measured, t0: float, level_db: float) -> list[float | None]:
+    """Per band, when the measured EDC first reaches ``level_db``, s re the direct sound."""
+    fs = measured.fs
+    out: list[float | None] = []
+    for bf in measured.bands:
+        below = np.flatnonzero(bf.decay.edc_db <= level_db)
+        out.append(float(below[0] / fs + measured.onset_index / fs - t0) if below.size else None)
+    return out
+
+
+def _next_tilt(history: list[tuple[float, float]], tilt: float, err: float,
+               tolerance: float, gain: float) -> float:
+    """Next control value (dB) from (value, error) pairs: secant when two differ, else
+    ``value − gain·error``; left alone once |error| < tolerance."""
+    history.append((tilt, err))
+    if abs(err) < tolerance:
+        return tilt
+    if len(history) >= 2:
+        (t_a, e_a), (t_b, e_b) = history[-2], history[-1]
+        if abs(e_b - e_a) > 1e-6 and abs(t_b - t_a) > 1e-9:
+            new = t_b - e_b * (t_b - t_a) / (e_b - e_a)
+            return float(np.clip(new, -TILT_LIMIT_DB, TILT_LIMIT_DB))
+    return float(np.clip(tilt - gain * err, -TILT_LIMIT_DB, TILT_LIMIT_DB))
 
 
 def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:

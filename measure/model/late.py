@@ -509,9 +509,8 @@ class LateReverb:
             "start_s": float(self.start_s),
             "fade_s": float(self.fade_s),
             "delays_s": [float(v) for v in self.delays_s],
-            "envelope_edges_s": [[round(float(v), 6) for v in row]
-                                 for row in self.envelope_edges_s],
-            "envelope_db": [[round(float(v), 3) for v in row] for row in self.envelope_db],
+            "envelope_edges_s": [[float(v) for v in row] for row in self.envelope_edges_s],
+            "envelope_db": [[float(v) for v in row] for row in self.envelope_db],
         }
 
 

@@ -1,0 +1,109 @@
+"""fit_model: the model against the measurement, band by band, in ISO 3382-1 JNDs."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from measure.errors import ParameterError
+from measure.model.fit import REPORT_PARAMETERS, fit_model
+from measure.model.late import line_gains
+from measure.virtual import DEMO_ROOMS, room_ir
+
+FS = 48000
+ACCEPTANCE_BANDS = ("125", "250", "500", "1k", "2k", "4k")
+
+
+def _comb_ir(t60_s: float, m: int, seconds: float) -> np.ndarray:
+    """The IR of 1/(1 − g·z^−M), g = 10^(−3M/(fs·T60)), after 10 ms of silence."""
+    n = int(seconds * FS)
+    h = np.zeros(n)
+    pre = int(0.01 * FS)
+    g = float(line_gains([m], FS, t60_s)[0])
+    h[pre::m] = g ** np.arange(len(h[pre::m]))
+    return h
+
+
+def test_fitter_recovers_the_comb_decay():
+    # Schroeder 1962 (modeling.md §4.1): the comb's T30 is T60 (1 %, the analysis of the
+    # measurement); the fitted model, rendered and analysed the same way, must give T60
+    # within 2 % (the acceptance tolerance). Bands 125-500 Hz: from 1 kHz up the octave
+    # filters ring for much less than the comb's 31 ms period and measure.parameters reports
+    # no usable decay for this sparse response (None or a few ms; see the report), so there is
+    # no measured decay to fit there.
+    t60 = 2.0
+    res = fit_model(_comb_ir(t60, 1500, 2.5), FS)
+    for band in ("125", "250", "500"):
+        measured = res.report.cell(band, "t30_s").measured
+        modelled = res.report.cell(band, "t30_s").modelled
+        assert measured is not None and abs(measured / t60 - 1) < 0.01, (band, measured)
+        assert modelled is not None and abs(modelled / t60 - 1) < 0.02, (band, modelled)
+
+
+def _within(res) -> tuple[int, int]:
+    ok = n = 0
+    for c in res.report.cells:
+        if c.band not in ACCEPTANCE_BANDS or c.parameter not in ("edt_s", "t30_s", "c80_db"):
+            continue
+        n += 1
+        # EDT, T30: 1 JND = 5 % (ISO 3382-1 Table A.1); C80: 1 JND = 1 dB (same table)
+        ok += c.difference_jnd is not None and abs(c.difference_jnd) <= 1.0
+    return ok, n
+
+
+def test_model_matches_the_virtual_rooms():
+    # Acceptance: for the virtual rooms (measure.virtual.DEMO_ROOMS), the rendered model's EDT
+    # and T30 within 1 JND (5 %) and C80 within 1 dB of the measured IR's, 125 Hz-4 kHz, for
+    # at least 90 % of the band-parameter cells (counted over all rooms together).
+    ok = n = 0
+    for room in DEMO_ROOMS:
+        res = fit_model(room_ir(room, FS), FS)
+        a, b = _within(res)
+        ok += a
+        n += b
+        # T30 alone: the calibration loop makes it hit every band (1 JND, same source)
+        for band in ACCEPTANCE_BANDS:
+            c = res.report.cell(band, "t30_s")
+            assert c.difference_jnd is not None and abs(c.difference_jnd) <= 1.0, (room.name, c)
+    assert n == 3 * 6 * 3
+    assert ok / n >= 0.9, f"{ok} of {n} cells within 1 JND"
+
+
+def test_fit_report_and_model_are_plain_json():
+    room = DEMO_ROOMS[1]
+    res = fit_model(room_ir(room, FS), FS, order=4, n_echoes=2)
+    doc = json.loads(json.dumps(res.to_dict()))
+    rep = doc["report"]
+    assert rep["parameters"] == [k for k, _, _ in REPORT_PARAMETERS]
+    assert len(rep["cells"]) == len(rep["bands"]) * len(REPORT_PARAMETERS)
+    # the JNDs of ISO 3382-1 Table A.1: 5 % for EDT, 1 dB for C80, 0.05 for D50, 10 ms for Ts
+    assert rep["jnd"]["edt_s"] == {"value": 0.05, "kind": "relative"}
+    assert rep["jnd"]["c80_db"]["value"] == 1.0
+    assert rep["jnd"]["d50"]["value"] == 0.05
+    assert rep["jnd"]["ts_s"]["value"] == 0.010
+    # options reached the stages
+    assert doc["model"]["coloration"]["order"] == 4
+    assert len(doc["model"]["echoes"]) == 2
+    # a difference in JNDs is (model − measured)/JND
+    c = res.report.cell("1k", "c80_db")
+    assert c.difference_jnd == pytest.approx(c.modelled - c.measured)
+    t = res.report.cell("1k", "edt_s")
+    assert t.difference_jnd == pytest.approx((t.modelled / t.measured - 1) / 0.05)
+    assert "max |Δ| in JNDs" in res.report.to_text()
+
+
+@pytest.mark.parametrize("kw, match", [
+    ({"order": 0}, "order"),
+    ({"order": 2.5}, "order"),
+    ({"n_echoes": -1}, "n_echoes"),
+])
+def test_bad_options_are_refused(kw, match):
+    with pytest.raises(ParameterError, match=match):
+        fit_model(np.r_[np.zeros(100), 1.0, np.zeros(FS)], FS, **kw)
+
+
+def test_silent_input_is_refused():
+    with pytest.raises(ParameterError):
+        fit_model(np.zeros(FS), FS)
