@@ -194,7 +194,7 @@ def _tail_energy_fn(e: np.ndarray, n1: int, a_db: float | None, b_db: float | No
 
 
 def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray | None = None,
-                   label: str = "") -> EnergyFigures:
+                   label: str = "", first: int | None = None) -> EnergyFigures:
     """C50, C80, D50, Ts (and DRR when the direct part is given) of one filtered IR.
 
     Parameters
@@ -210,6 +210,13 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
         and tail-compensated like the others.
     label : str
         Band name for flags.
+    first : int, optional
+        First sample counted as early energy (default ``start``). A causal band filter starts
+        to answer the direct sound at the broadband onset and peaks about its group delay
+        later; the sums must include that rise, or the band's direct sound is partly lost
+        and depends on where between two samples it fell (measured: up to 0.7 dB of C80 at
+        8 kHz between a true response and the same response shifted by half a sample).
+        Times (the te split, Ts) still count from ``start``.
 
     Notes
     -----
@@ -220,7 +227,9 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
     y = check_signal(y, "y", ndim=(1,))
     fs = check_fs(fs)
     where = f"{label}: " if label else ""
-    seg = y[start:]
+    first = start if first is None else min(max(int(first), 0), start)
+    lead = start - first
+    seg = y[first:]
     nf = lundeby(seg, fs)
     if not nf.ok:
         msg = f"{where}C50, C80, D50, Ts and DRR cannot be measured: {nf.reason}"
@@ -239,14 +248,14 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
                              (f"{where}no energy left after removing the noise",))
     out: dict[str, float | None] = {}
     for te_s, key in ((0.050, "c50_db"), (0.080, "c80_db")):
-        k = int(round(te_s * fs))
+        k = lead + int(round(te_s * fs))
         late = tail(k)
         early = total - late
         out[key] = 10.0 * math.log10(early / late) if early > 0 and late > 0 else None
         if out[key] is None:
             flags.append(f"{where}{key[:3].upper()} undefined: no energy on one side of "
                          f"{te_s * 1000:.0f} ms")
-    k50 = int(round(0.050 * fs))
+    k50 = lead + int(round(0.050 * fs))
     d50 = (total - tail(k50)) / total
     # Ts: Σ t e over the measured part plus the analytic tail Σ t a r^(n-n1)
     t = np.arange(n1) / fs
@@ -255,14 +264,14 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
         r = 10.0 ** (b_db / (10.0 * fs))
         a1 = 10.0 ** ((a_db + b_db * n1 / fs) / 10.0)
         mom += a1 * ((n1 / fs) / (1.0 - r) + (r / (1.0 - r) ** 2) / fs)
-    ts = mom / total
+    ts = mom / total - lead / fs  # times count from start
     drr = None
     if y_direct is not None:
         m = min(y_direct.shape[0], y.shape[0])
         e_d = float(np.sum(y_direct[:m] ** 2))
         # reverberant energy: everything minus the direct part, from sample 0 to the
         # crosspoint (noise-corrected), plus the tail
-        stop = start + n1
+        stop = first + n1
         rest = y[:stop].copy()
         mm = min(m, stop)
         rest[:mm] -= y_direct[:mm]
@@ -486,7 +495,8 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
                               label=label)
         start = min(onset + int(round(gd * fs)), y_causal.shape[0] - 2)
         order = filter_order(band, fs)
-    energy = energy_figures(y_causal, fs, start=start, y_direct=y_direct, label=label)
+    energy = energy_figures(y_causal, fs, start=start, y_direct=y_direct, label=label,
+                            first=max(onset - int(round(0.001 * fs)), 0))
     flags = list(decay.flags) + list(energy.flags)
     if band is not None:
         _, spread = _filter_timing(band.kind, band.index, fs)
