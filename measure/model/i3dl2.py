@@ -72,7 +72,7 @@ DIRECT_WINDOW_S = 0.0025
 #: to the start of the reverb (a fixed, irregular pattern; signs alternate).
 TAP_FRACTIONS = (0.0, 0.13, 0.29, 0.45, 0.63, 0.82)
 #: Calibration passes of estimate_i3dl2.
-N_CALIBRATION_PASSES = 3
+N_CALIBRATION_PASSES = 4
 #: Band centres of the late part of the rendering (octaves 63 Hz–16 kHz).
 RENDER_BANDS_HZ = tuple(1000.0 * 2.0 ** k for k in range(-4, 5))
 #: ReverbDelay used when the room shows no mixing time (a response too sparse), s.
@@ -120,19 +120,25 @@ class I3dl2Set:
         return "\n".join(lines)
 
 
-def _band_energy(spec: np.ndarray, fs: int, n_fft: int, f_lo: float, f_hi: float,
-                 spans: list[tuple[int, int]]) -> list[float]:
-    """Energy of ``irfft(spec·mask)`` over sample spans; mask 1 in [f_lo, f_hi], cos² edges."""
-    from scipy.fft import irfft
+def _band_energies(parts: list[np.ndarray], fs: int, f_lo: float, f_hi: float) -> list[float]:
+    """Energy of each part within [f_lo, f_hi] (raised-cosine edges of 1/6 octave), by
+    Parseval on its spectrum. The parts are cut from the broadband IR before this band
+    weighting, so no band filter's ringing moves energy from one part into another (the same
+    choice as measure.parameters makes for the direct-to-reverberant ratio)."""
+    from scipy.fft import next_fast_len, rfft
 
-    f = np.arange(spec.size) * fs / n_fft
+    n_fft = next_fast_len(max(p.size for p in parts), real=True)
+    f = np.arange(n_fft // 2 + 1) * fs / n_fft
     lf = np.log2(np.maximum(f, 1e-3))
     edge = 1.0 / 6.0  # octaves of raised-cosine edge each side
     m = np.clip((lf - (math.log2(f_lo) - edge / 2)) / edge, 0, 1) * np.clip(
         ((math.log2(f_hi) + edge / 2) - lf) / edge, 0, 1)
-    m = np.sin(0.5 * np.pi * m) ** 2
-    y = irfft(spec * m, n=n_fft)
-    return [float(np.sum(y[a:b] ** 2)) for a, b in spans]
+    m2 = np.sin(0.5 * np.pi * m) ** 4
+    w = np.full(f.size, 2.0)  # a real signal's half spectrum: interior bins count twice
+    w[0] = 1.0
+    if n_fft % 2 == 0:
+        w[-1] = 1.0
+    return [float(np.sum(w * m2 * np.abs(rfft(p, n_fft)) ** 2) / n_fft) for p in parts]
 
 
 def measure_i3dl2(h: np.ndarray, fs: int, *, t0_s: float, t1_s: float | None,
@@ -145,22 +151,23 @@ def measure_i3dl2(h: np.ndarray, fs: int, *, t0_s: float, t1_s: float | None,
     values, clamped : dict, dict
         See :class:`I3dl2Set`.
     """
-    from scipy.fft import next_fast_len, rfft
-
     fs = check_fs(fs)
+    h = np.asarray(h, dtype=np.float64)
     n = h.size
-    n_fft = next_fast_len(n + int(0.05 * fs), real=True)
-    spec = rfft(h, n_fft)
     i0 = int(round(t0_s * fs))
     i_d = i0 + int(round(DIRECT_WINDOW_S * fs))
     t1 = t1_s if t1_s is not None else t0_s + DIRECT_WINDOW_S
     tm = tm_s if tm_s is not None and tm_s > t1 else t1 + FALLBACK_REVERB_DELAY_S
     i_m = max(i_d + 1, int(round(tm * fs)))
-    spans = [(max(0, i0 - int(0.001 * fs)), i_d), (i_d, i_m), (i_m, n)]
-    lf = _band_energy(spec, fs, n_fft, LF_OCTAVES_HZ[0] / math.sqrt(2),
-                      LF_OCTAVES_HZ[-1] * math.sqrt(2), spans)
+    parts = []
+    for a, b in ((0, i_d), (i_d, i_m), (i_m, n)):
+        p = np.zeros(n)
+        p[a:b] = h[a:b]
+        parts.append(p)
+    lf = _band_energies(parts, fs, LF_OCTAVES_HZ[0] / math.sqrt(2),
+                        LF_OCTAVES_HZ[-1] * math.sqrt(2))
     f_hi = min(hf_reference_hz * math.sqrt(2), 0.49 * fs)
-    hf = _band_energy(spec, fs, n_fft, hf_reference_hz / math.sqrt(2), f_hi, spans)
+    hf = _band_energies(parts, fs, hf_reference_hz / math.sqrt(2), f_hi)
     tiny = 1e-30
     e_d, e_e, e_l = (max(v, tiny) for v in lf)
     room = 1000.0 * math.log10((e_e + e_l) / e_d)
@@ -283,6 +290,26 @@ def _diffusion(h: np.ndarray, fs: int, t_a: float, t_b: float) -> float | None:
     return float(100.0 * np.clip(np.mean(ed.eta[sel]), 0.0, 1.0))
 
 
+def _t30_at(h: np.ndarray, fs: int, bands, f_hz: float) -> float | None:
+    """T30 at ``f_hz``: log-log interpolation between the octaves around it (as the model's
+    late decay is read at HFReference)."""
+    from measure.model.late import octave_t30_s
+
+    lower = [b for b in bands if b.center_hz <= f_hz * 1.02]
+    upper = [b for b in bands if b.center_hz >= f_hz / 1.02]
+    pick = [b for b in (lower[-1:] + upper[:1])]
+    pick = list({b.center_hz: b for b in pick}.values())
+    t = octave_t30_s(h, fs, pick)
+    pts = [(math.log(b.center_hz), math.log(v)) for b, v in zip(pick, t, strict=True)
+           if v is not None]
+    if not pts:
+        return None
+    if len(pts) == 1:
+        return math.exp(pts[0][1])
+    (x0, y0), (x1, y1) = pts
+    return math.exp(y0 + (y1 - y0) * (math.log(f_hz) - x0) / (x1 - x0))
+
+
 def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
                    hf_reference_hz: float = 5000.0) -> I3dl2Set:
     """The room of a fitted model as an I3DL2 set, calibrated by rendering and re-analysing.
@@ -305,7 +332,8 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
     The targets are the §5.2 estimates on the model rendered at ``fs`` (noise-free, the fitted
     room). The set is then rendered by :func:`render_i3dl2`, re-estimated with the same code,
     and its levels (mB) moved by target − re-estimate and its decay values scaled by
-    target / re-estimate, :data:`N_CALIBRATION_PASSES` times.
+    target / re-estimate; :data:`N_CALIBRATION_PASSES` renderings, the last only to measure the
+    residual of the set returned.
     """
     from measure.errors import ParameterError
     from measure.model.late import octave_t30_s
@@ -345,23 +373,23 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
     values = dict(target)
     residual: dict[str, float] = {}
     n_sec = seconds - t0
-    for _ in range(N_CALIBRATION_PASSES):
+    for i_pass in range(N_CALIBRATION_PASSES):
         hr = render_i3dl2(values, fs, n_sec)
         t_lf_r = [t for t in octave_t30_s(hr, fs, lf_bands) if t is not None]
-        hf_b = [b for b in bands if abs(math.log2(b.center_hz / hf_reference_hz)) < 0.5]
-        t_hf_r = [t for t in octave_t30_s(hr, fs, hf_b[:1]) if t is not None]
+        t_hf_r = _t30_at(hr, fs, bands, hf_reference_hz)
         d = values["ReflectionsDelay"]
         got, _ = measure_i3dl2(hr, fs, t0_s=0.0, t1_s=d, tm_s=d + values["ReverbDelay"],
                                t60_lf_s=float(np.mean(t_lf_r)) if t_lf_r else values["DecayTime"],
-                               t60_hf_s=(float(np.mean(t_hf_r)) if t_hf_r else
+                               t60_hf_s=(t_hf_r if t_hf_r is not None else
                                          values["DecayTime"] * values["DecayHFRatio"]),
                                hf_reference_hz=hf_reference_hz)
-        residual = {}
+        residual = {k: got[k] - target[k] for k in
+                    ("Room", "RoomHF", "Reflections", "Reverb", "DecayTime", "DecayHFRatio")}
+        if i_pass == N_CALIBRATION_PASSES - 1:
+            break  # the residual is that of the values returned
         for k in ("Room", "RoomHF", "Reflections", "Reverb"):
-            residual[k] = got[k] - target[k]
             values[k] = values[k] - residual[k]
         for k in ("DecayTime", "DecayHFRatio"):
-            residual[k] = got[k] - target[k]
             values[k] = values[k] * target[k] / got[k]
         values, more = _clamp(values)
         for k, v in more.items():
