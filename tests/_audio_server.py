@@ -7,9 +7,13 @@ developer's own machine without it, those tests are skipped with the reason.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import subprocess
+import tempfile
+import time
+from pathlib import Path
 
 import pytest
 
@@ -46,6 +50,39 @@ def require_audio_server() -> None:
     pytest.skip(message)
 
 
+#: The loopback client is one shared bus: whatever any client plays on its outputs, every client
+#: recording its inputs hears. Tests that use it hold this lock, so that two test runs at once
+#: (two terminals, a developer and a helper) never record each other's sweeps.
+LOCK_PATH = Path(tempfile.gettempdir()) / "measure-jack-loopback.lock"
+LOCK_TIMEOUT_S = 300.0
+
+
+@contextlib.contextmanager
+def exclusive_loopback():
+    try:
+        import fcntl
+    except ImportError:  # no flock (Windows): JACK tests run alone there anyway
+        yield
+        return
+    with open(LOCK_PATH, "a+") as fh:
+        deadline = time.monotonic() + LOCK_TIMEOUT_S
+        while True:
+            try:
+                fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() > deadline:
+                    pytest.fail(f"another test run held {LOCK_PATH} for {LOCK_TIMEOUT_S:g} s")
+                time.sleep(0.05)
+        try:
+            yield
+        finally:
+            fcntl.flock(fh.fileno(), fcntl.LOCK_UN)
+
+
 @pytest.fixture
-def audio_server() -> None:
+def audio_server():
+    """The JACK server is up (or skip/fail), and this test has the loopback bus to itself."""
     require_audio_server()
+    with exclusive_loopback():
+        yield

@@ -149,6 +149,12 @@ def test_capture_through_the_loopback_then_referenced_take_2(audio_server, sweep
     # The take on disk, recovered independently: a unit impulse one period late.
     take = read_audio(cap / "lab" / f"P1-take{k}.wav")
     sweep = read_sweep(sweeps["s48"])
+    # Complete: every sample of the program, bit for bit one period late, and the tail.
+    x = sweep.program.astype(np.float32).astype(np.float64)  # the sweep file is 32-bit float
+    assert take.x.shape == (1, side["n_samples"]) and take.subtype == "FLOAT"
+    assert np.array_equal(take.x[0, SERVER_PERIOD:SERVER_PERIOD + x.size], x)
+    assert not np.any(take.x[0, :SERVER_PERIOD]) and not np.any(take.x[0, SERVER_PERIOD + x.size:])
+    assert take.x.shape[1] >= SERVER_PERIOD + x.size  # nothing cut off at the end
     ir = recover_ir(take.x, sweep)
     assert abs(ir.latency_s[0] * SERVER_FS - SERVER_PERIOD) <= 1.0
     assert ir.peak_to_noise_db[0] > 100.0
@@ -235,12 +241,12 @@ def test_clipping_is_caught_by_the_level_check_and_in_the_take(audio_server, swe
     cap = tmp_path / "caps"
     common = ["--sweep", str(sweeps["loud"]), "--room", "lab", "--device", LOOPBACK_DEVICE,
               "--captures", str(cap), "--yes"]
-    checked, unchecked = measure_concurrently(
-        # A 0 dBFS sweep through the bit-exact loopback reaches full scale. The level check
-        # stops at the first clipped sample, before the take, and nothing is recorded.
-        ["capture", *common, "--position", "P1"],
-        # Without the level check the take is kept but marked for redo, saying why.
-        ["capture", *common, "--position", "P2", "--no-level-check"], cwd=tmp_path)
+    # One after the other: both play on output 1 and record input 1 of the shared loopback.
+    # A 0 dBFS sweep through the bit-exact loopback reaches full scale. The level check stops at
+    # the first clipped sample, before the take, and nothing is recorded.
+    checked = measure("capture", *common, "--position", "P1", cwd=tmp_path)
+    # Without the level check the take is kept but marked for redo, saying why.
+    unchecked = measure("capture", *common, "--position", "P2", "--no-level-check", cwd=tmp_path)
     r = checked
     assert r.returncode == 2, r.stdout + r.stderr
     assert "error: the level check clipped the input" in r.stderr
@@ -260,6 +266,7 @@ def test_silent_input_is_detected(audio_server, sweeps, tmp_path):  # noqa: F811
     cap = tmp_path / "caps"
     common = ["--sweep", str(sweeps["short"]), "--yes"]
     take = ["--room", "lab", "--captures", str(cap), "--no-level-check"]
+    # At once: all three play on output 1 and none records input 1, so none hears the others.
     level, channel, device = measure_concurrently(
         # Output 1 only; input 2 of the loopback carries nothing.
         ["level", *common, "--device", LOOPBACK_DEVICE, "--input-channels", "2"],
