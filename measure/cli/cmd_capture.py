@@ -309,7 +309,7 @@ def run(args: argparse.Namespace) -> int:
         if stage["take"] is not None:
             t = stage["take"]
             info(f"{how} during {stage['name']}; the take is complete and kept: {t.wav} and "
-                 f"{t.json.name} (analyse it later with `measure ir {t.wav} --sweep {args.sweep}`)")
+                 f"{t.json.name} (analyse it later with `measure analyze {t.wav} --sweep {args.sweep}`)")
         else:
             info(f"{how} during {stage['name']}; this take was not saved and no partial file was "
                  f"left; {kept_message(args.captures, args.room, args.position)}")
