@@ -58,6 +58,8 @@ __all__ = [
     "compare_figures",
     "REPORT_PARAMETERS",
     "ENVELOPE_SPLITS_S",
+    "ModelDemo",
+    "model_demo",
 ]
 
 #: Parameters of the fit report, their JSON keys and JNDs (ISO 3382-1:2009 Table A.1 via
@@ -505,3 +507,76 @@ def _mixing_time(h: np.ndarray, fs: int) -> float | None:
         return float(mixing_time(h, fs))
     except FitError:
         return None
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class ModelDemo:
+    """What :func:`model_demo` returns: everything the demo writes for one room.
+
+    Attributes
+    ----------
+    result : FitResult
+        The model (with its I3DL2 set) and the fit report.
+    i3dl2 : I3dl2Set
+    model_ir : ndarray
+        The model rendered at ``fs``, as long as the measured IR.
+    dry, wet_measured, wet_modelled : ndarray
+        The dry demo sound and the same through the measured and the modelled room, both wet
+        signals scaled by one common factor so that the louder peaks at −1 dBFS.
+    fs : int
+    """
+
+    result: FitResult
+    i3dl2: Any
+    model_ir: np.ndarray
+    dry: np.ndarray
+    wet_measured: np.ndarray
+    wet_modelled: np.ndarray
+    fs: int
+
+    def __post_init__(self) -> None:
+        for a in (self.model_ir, self.dry, self.wet_measured, self.wet_modelled):
+            a.setflags(write=False)
+
+
+def model_demo(h: Any, fs: int, *, dry: np.ndarray | None = None,
+               source: dict | None = None) -> ModelDemo:
+    """Fit, export and audition one room in one call (for ``measure demo``).
+
+    Parameters
+    ----------
+    h : array_like, shape (n,)
+        Measured impulse response.
+    fs : int, > 0, Hz
+    dry : ndarray, optional
+        Dry sound at ``fs``; default :func:`measure.model.drysound.dry_demo_sound`.
+    source : dict, optional
+        Written into the model's ``source``.
+
+    Returns
+    -------
+    ModelDemo
+        Write ``result.model.to_dict()`` as the model file, ``model_ir`` as the modelled IR and
+        ``wet_measured`` / ``wet_modelled`` as the auralized pair (all at ``fs``).
+    """
+    from measure.model.drysound import dry_demo_sound
+    from measure.model.i3dl2 import estimate_i3dl2
+    from measure.model.render import auralize, render_model
+
+    h = check_signal(h, "impulse response", ndim=(1,))
+    fs = check_fs(fs)
+    res = fit_model(h, fs, source=source)
+    i3 = estimate_i3dl2(h, fs, res.model)
+    model = RoomModel(fit_fs=res.model.fit_fs, direct_delay_s=res.model.direct_delay_s,
+                      direct_gain=res.model.direct_gain, coloration=res.model.coloration,
+                      echoes=res.model.echoes, late=res.model.late,
+                      mixing_time_s=res.model.mixing_time_s, source=res.model.source,
+                      i3dl2=i3.to_dict())
+    x = dry_demo_sound(fs) if dry is None else check_signal(dry, "dry sound", ndim=(1,))
+    model_ir = render_model(model, fs, h.size / fs)
+    wet_m = auralize(x, fs, h)
+    wet_o = auralize(x, fs, model_ir)
+    peak = max(float(np.max(np.abs(wet_m))), float(np.max(np.abs(wet_o))), 1e-30)
+    k = 10.0 ** (-1.0 / 20.0) / peak
+    return ModelDemo(FitResult(model, res.report), i3, model_ir, np.array(x), wet_m * k,
+                     wet_o * k, fs)
