@@ -342,7 +342,6 @@ def play_and_record(program: np.ndarray, fs: int, *, input_device: DeviceInfo,
     KeyboardInterrupt
         Propagated after the stream is stopped (nothing is kept).
     """
-    sd = _sd()
     fs = check_fs(fs)
     x = np.ascontiguousarray(np.asarray(program, dtype=np.float32).ravel())
     in_ch = tuple(int(c) for c in input_channels)
@@ -358,7 +357,13 @@ def play_and_record(program: np.ndarray, fs: int, *, input_device: DeviceInfo,
             f"output channel(s) {[c + 1 for c in out_ch]} do not exist on "
             f"{output_device.name!r}, which has {output_device.n_outputs}; pick channels "
             f"1..{output_device.n_outputs}")
+    if input_device.hostapi != output_device.hostapi:
+        raise DeviceError(
+            f"the input {input_device.name!r} ({input_device.hostapi}) and the output "
+            f"{output_device.name!r} ({output_device.hostapi}) belong to different host APIs, "
+            "which cannot share one stream; pick both from the same host API (`measure devices`)")
     n_open_in, n_open_out = max(in_ch) + 1, max(out_ch) + 1
+    sd = _sd()
     check_rate(input_device, output_device, fs, n_inputs=n_open_in, n_outputs=n_open_out)
 
     state = {"pos": 0, "over": 0, "under": 0, "other": 0, "clip_at": None, "error": None}
@@ -458,15 +463,18 @@ class ChannelStats:
         RMS of the noise-only part (before the sweep arrives), 20 lg rms re 1.0; None if exactly 0.
     n_clipped : int
         Samples with |y| >= CLIP_LEVEL.
+    n_noise_samples : int
+        Samples the noise figure was measured on (0: no noise-only part, e.g. no lead-in).
     """
 
     peak_dbfs: float | None
     noise_rms_dbfs: float | None
     n_clipped: int
+    n_noise_samples: int = 0
 
     def to_dict(self) -> dict[str, Any]:
         return {"peak_dbfs": self.peak_dbfs, "noise_rms_dbfs": self.noise_rms_dbfs,
-                "n_clipped": self.n_clipped}
+                "n_clipped": self.n_clipped, "n_noise_samples": self.n_noise_samples}
 
 
 def input_stats(y: np.ndarray, noise: slice) -> tuple[ChannelStats, ...]:
@@ -482,7 +490,7 @@ def input_stats(y: np.ndarray, noise: slice) -> tuple[ChannelStats, ...]:
         out.append(ChannelStats(
             peak_dbfs=_db(float(a.max()) ** 2) if a.size else None,
             noise_rms_dbfs=_db(float(np.mean(seg ** 2))) if seg.size else None,
-            n_clipped=int(np.count_nonzero(a >= CLIP_LEVEL))))
+            n_clipped=int(np.count_nonzero(a >= CLIP_LEVEL)), n_noise_samples=int(seg.size)))
     return tuple(out)
 
 

@@ -105,6 +105,21 @@ def test_resolve_errors_list_the_choices():
         resolve_device("codec", "input", DEVS)
 
 
+def test_stream_requests_are_checked_before_any_device_is_touched():
+    mic, out = DEVS[0], DEVS[1]
+    other_api = DeviceInfo(7, "USB Audio CODEC", "ALSA", 2, 2, 48000)
+    x = np.zeros(480)
+    with pytest.raises(DeviceError, match="different host APIs"):
+        capture.play_and_record(x, FS, input_device=other_api, output_device=out,
+                                input_channels=[0], output_channels=[0])
+    with pytest.raises(DeviceError, match=r"input channel\(s\) \[2\] do not exist.*1\.\.1"):
+        capture.play_and_record(x, FS, input_device=mic, output_device=out,
+                                input_channels=[1], output_channels=[0])
+    with pytest.raises(DeviceError, match=r"output channel\(s\) \[3\] do not exist"):
+        capture.play_and_record(x, FS, input_device=mic, output_device=out,
+                                input_channels=[0], output_channels=[2])
+
+
 # ---------------------------------------------------------------------------------------------
 # Input figures and the verdict (pure)
 # ---------------------------------------------------------------------------------------------

@@ -494,7 +494,9 @@ def format_summary(summary: dict[str, Any], take: Any, fs: int, rec: Any = None)
             f"{rec.fs} Hz; xruns {rec.n_xruns}")
     for s in summary["input"]:
         pk = "silent" if s["peak_dbfs"] is None else f"{s['peak_dbfs']:.1f} dBFS"
-        nz = "digital silence" if s["noise_rms_dbfs"] is None else f"{s['noise_rms_dbfs']:.1f} dBFS rms"
+        nz = ("not measured (no lead-in)" if not s.get("n_noise_samples")
+              else "digital silence" if s["noise_rms_dbfs"] is None
+              else f"{s['noise_rms_dbfs']:.1f} dBFS rms")
         lines.append(f"{s['label']:<32} peak {pk}, noise {nz}, clipped {s['n_clipped']}")
     an = summary["analysis"]
     for c in an["channels"]:
