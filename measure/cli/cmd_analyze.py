@@ -37,6 +37,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="channel of INPUT to analyse, 1-based (default 1)")
     p.add_argument("--json", action="store_true",
                    help="print the figures as one JSON object on stdout")
+    p.add_argument("--plot", metavar="FILE.png", default=None,
+                   help="also draw the impulse response, each band's decay curve with its "
+                        "EDT/T20/T30 fit ranges, and the decay times per band into a PNG "
+                        "(needs matplotlib; stdout is unchanged)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -45,6 +49,11 @@ def run(args: argparse.Namespace) -> int:
     from measure.errors import ParameterError
     from measure.parameters import analyze_ir
 
+    if args.plot is not None:  # before any work, so nothing is written when it cannot be drawn
+        from measure.report import check_png_path, require_matplotlib
+
+        check_png_path(args.plot, option="--plot")
+        require_matplotlib()
     audio = audio_io.read_audio(args.input)
     ch = _zero_based(args.channel, audio.n_channels)
     capture = None
@@ -68,6 +77,15 @@ def run(args: argparse.Namespace) -> int:
         doc["latency_s"] = capture.latency_s[0]
         doc["drift_ppm"] = capture.drift_ppm
         doc["details"]["capture"] = capture.to_dict()
+    if args.plot is not None:
+        from pathlib import Path
+
+        from measure.report import write_analysis_plot
+
+        what = "capture" if capture is not None else "impulse response"
+        path = write_analysis_plot(args.plot, h, audio.fs, figs,
+                                   f"{Path(args.input).name} ({what}, channel {args.channel})")
+        info(f"plot written to {path}")
     if args.json:
         print_json(doc)
     else:

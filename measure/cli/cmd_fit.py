@@ -35,6 +35,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="channel of IR.wav to fit, 1-based (default 1)")
     p.add_argument("--json", action="store_true",
                    help="print the model, the fit report and the I3DL2 set as one JSON object")
+    p.add_argument("--plot", metavar="FILE.png", default=None,
+                   help="also draw measured against model (EDT, T30, C80 per band, the "
+                        "differences in JNDs, the decay curves) into a PNG (needs matplotlib; "
+                        "stdout is unchanged)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -54,6 +58,11 @@ def run(args: argparse.Namespace) -> int:
         raise ParameterError(f"--order {args.order} must be >= 1 (e.g. 4 or 8)")
     if args.echoes is not None and args.echoes < 0:
         raise ParameterError(f"--echoes {args.echoes} must be >= 0")
+    if args.plot is not None:  # before any work, so nothing is written when it cannot be drawn
+        from measure.report import check_png_path, require_matplotlib
+
+        check_png_path(args.plot, option="--plot")
+        require_matplotlib()
     audio = audio_io.read_audio(args.ir)
     if not 1 <= args.channel <= audio.n_channels:
         raise ParameterError(
@@ -69,6 +78,18 @@ def run(args: argparse.Namespace) -> int:
                       coloration=m.coloration, echoes=m.echoes, late=m.late,
                       mixing_time_s=m.mixing_time_s, source=m.source, i3dl2=i3.to_dict())
     audio_io.write_json(out, model.to_dict())
+    if args.plot is not None:
+        from measure.model.render import render_model
+        from measure.parameters import analyze_ir
+        from measure.report import write_model_plot
+
+        # the two analyses the fit's last pass made (rendering is deterministic)
+        measured = analyze_ir(h, audio.fs, sti=False)
+        modelled = analyze_ir(render_model(result.model, audio.fs, h.size / audio.fs), audio.fs,
+                              sti=False)
+        path = write_model_plot(args.plot, measured, modelled, result.report,
+                                f"{Path(args.ir).name}: measured against the fitted model")
+        info(f"plot written to {path}")
     if args.json:
         print_json({"model": model.to_dict(), "report": result.report.to_dict(),
                     "i3dl2": i3.to_dict()})
