@@ -406,3 +406,25 @@ def test_import_files_an_offline_take_and_analyses_it(sweeps, tmp_path):
     r = measure("import", str(src), "--room", "hall", "--position", "S1-R2", "--captures",
                 str(tmp_path / "caps"), cwd=tmp_path)
     assert r.returncode == 0 and (tmp_path / "caps" / "hall" / "S1-R2-take2.wav").exists()
+
+
+@pytest.mark.audio_server
+def test_asks_before_playing_on_a_terminal(audio_server, sweeps, tmp_path):  # noqa: F811
+    import pty
+
+    master, slave = pty.openpty()
+    try:
+        proc = subprocess.Popen(
+            [PY, "-m", "measure", "capture", "--sweep", str(sweeps["short"]), "--room", "lab",
+             "--position", "P1", "--device", LOOPBACK_DEVICE, "--captures",
+             str(tmp_path / "c")], cwd=tmp_path, stdin=slave, stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE, text=True)
+        os.write(master, b"n\n")  # the user does not confirm
+        out, err = proc.communicate(timeout=60)
+    finally:
+        os.close(master)
+        os.close(slave)
+    assert proc.returncode == 2, err
+    assert "hearing protection" in err and "type y to play" in out + err
+    assert "error: not confirmed; nothing was played" in err
+    assert "level check:" not in err and not (tmp_path / "c").exists()
