@@ -88,6 +88,7 @@ ENVELOPE_DEPTH_DB = 20.0
 ENVELOPE_MIN_BT = 3.0
 ENVELOPE_MIN_WIDTH_S = 0.008
 ENVELOPE_MAX_S = 1.5
+ENVELOPE_TAIL_DB = 40.0
 #: EDT tilt (see fit_model): first step in dB per unit of ln(EDT_model/EDT_measured), its
 #: limit, and the relative EDT error below which a band is left alone.
 TILT_GAIN_DB = 15.0
@@ -448,8 +449,9 @@ def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
 
     Edges where the measured band EDC crosses 0, −ENVELOPE_STEP_DB, −2·ENVELOPE_STEP_DB ...
     down to −ENVELOPE_DEPTH_DB (so each segment holds a similar share of the decay that EDT
-    and the clarity figures see), plus the 50 and 80 ms splits of C50/C80 (ISO 3382-1 A.2.3),
-    merged where closer than the band filter's time resolution (ENVELOPE_MIN_BT / bandwidth).
+    and the clarity figures see), the 50 and 80 ms splits of C50/C80 (ISO 3382-1 A.2.3), and
+    where the EDC has fallen ENVELOPE_TAIL_DB below its level at the late start; merged where
+    closer than the band filter's time resolution (ENVELOPE_MIN_BT / bandwidth).
     """
     fs = measured.fs
     lead = measured.onset_index / fs - t0
@@ -459,6 +461,14 @@ def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
         marks = [LATE_START_S, *ENVELOPE_SPLITS_S]
         for level in np.arange(-ENVELOPE_STEP_DB, -ENVELOPE_DEPTH_DB - 1e-9, -ENVELOPE_STEP_DB):
             below = np.flatnonzero(edc <= level)
+            if below.size:
+                marks.append(below[0] / fs + lead)
+        # one long last segment down to where the decay has fallen ENVELOPE_TAIL_DB below its
+        # level after the direct sound: it anchors the late energy (C80's denominator) even
+        # when a strong direct sound makes the EDC reach −ENVELOPE_DEPTH_DB early
+        i_start = max(0, int(round((LATE_START_S - lead) * fs)))
+        if i_start < edc.size:
+            below = np.flatnonzero(edc <= edc[i_start] - ENVELOPE_TAIL_DB)
             if below.size:
                 marks.append(below[0] / fs + lead)
         width = max(ENVELOPE_MIN_WIDTH_S, ENVELOPE_MIN_BT / (bf.band.f_hi_hz - bf.band.f_lo_hz))
