@@ -373,7 +373,11 @@ def _draw_ir(ax: Any, ax_early: Any, h: np.ndarray, fs: int, figures: Any) -> No
     i0 = max(0, figures.onset_index - int(round(0.005 * fs)))
     i1 = min(h.shape[0], figures.onset_index + int(round(_EARLY_S * fs)))
     t_ms = (np.arange(i0, i1) - figures.onset_index) / fs * 1000.0
-    ax_early.plot(t_ms, _level_db(e[i0:i1], peak), color=_C_CURVE, lw=0.6)
+    ax_early.plot(t_ms, _level_db(e[i0:i1], peak), color="#9ecae1", lw=0.5,
+                  label="10 lg h²")
+    k1 = max(1, int(round(0.001 * fs)))
+    ax_early.plot(t_ms, _level_db(np.convolve(e[i0:i1], np.ones(k1) / k1, mode="same"), peak),
+                  color=_C_CURVE, lw=1.0, label="1 ms average")
     for te_ms, name in ((50.0, "50 ms"), (80.0, "80 ms")):
         ax_early.axvline(te_ms, color=_C_C80, lw=1.0, ls="--")
         ax_early.text(te_ms, 1.0, f" {name}", color=_C_C80, fontsize=7, va="top",
@@ -385,6 +389,7 @@ def _draw_ir(ax: Any, ax_early: Any, h: np.ndarray, fs: int, figures: Any) -> No
     ax_early.set_ylabel("level (dB re peak)")
     ax_early.set_title("First 100 ms (C50/C80 splits)", fontsize=10, loc="left")
     ax_early.grid(True, alpha=0.3)
+    ax_early.legend(loc="lower left", fontsize=7, framealpha=0.85)
 
 
 def _band_curve(bf: Any, h: np.ndarray, fs: int, onset: int) -> tuple[np.ndarray, bool]:
