@@ -166,3 +166,11 @@ def test_demo_runs_end_to_end_without_hardware(tmp_path, capsys):
         doc = json.loads(fig.read_text())
         assert doc["drift_ppm"] == pytest.approx(23.0, abs=2.0)  # the demo's virtual USB mic
     assert "stairwell" in out and "Look in" in out
+    models = [p for p in (root / "models").glob("*.json") if not p.name.endswith("-report.json")]
+    assert len(models) == 3
+    for m in models:
+        assert json.loads(m.read_text())["i3dl2"]["values"]["DecayTime"] > 0
+    assert (root / "listen" / "dry.wav").exists()
+    assert len(list((root / "listen").glob("*-measured.wav"))) == 3
+    assert len(list((root / "listen").glob("*-modelled.wav"))) == 3
+    assert len(list((root / "plots").glob("*.png"))) == 6

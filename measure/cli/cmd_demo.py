@@ -36,6 +36,7 @@ def run(args: argparse.Namespace) -> int:
     from measure.cli._common import info
     from measure.deconvolve import recover_ir
     from measure.demo import BUILDING, DEMO_SWEEP, DEMO_TAKES
+    from measure.model.fit import model_demo
     from measure.parameters import analyze_ir
     from measure.sweep import make_sweep
     from measure.virtual import room_ir, virtual_take
@@ -68,13 +69,48 @@ def run(args: argparse.Namespace) -> int:
         audio_io.write_ir(ir_wav, ir, sweep=sweep, sources={
             "capture": str(take.wav), "capture_sha256": audio_io.file_sha256(take.wav),
             "sweep": str(sweep_wav), "sweep_sha256": audio_io.file_sha256(sweep_wav)})
-        figures = analyze_ir(ir.h[0], ir.fs)
+        stem = f"{t.room.name}-{t.position}"
+        h = ir.h[0]
+        figures = analyze_ir(h, ir.fs)
         doc = figures.to_dict()
         doc.update(latency_s=ir.latency_s[0], drift_ppm=ir.drift_ppm)
-        audio_io.write_json(root / "figures" / f"{t.room.name}-{t.position}.json", doc)
-        rows.append((t, ir, doc))
+        audio_io.write_json(root / "figures" / f"{stem}.json", doc)
+
+        info(f"  {t.room.name}: fitting the compact model, rendering, auralizing ...")
+        md = model_demo(h, ir.fs, source={"file": ir_wav.name, "room": t.room.name,
+                                          "position": t.position, "building": BUILDING})
+        audio_io.write_json(root / "models" / f"{stem}.json", md.result.model.to_dict())
+        audio_io.write_audio(root / "models" / f"{stem}-model-ir.wav", md.model_ir, ir.fs)
+        if i == 0:
+            audio_io.write_audio(root / "listen" / "dry.wav", md.dry, ir.fs)
+        audio_io.write_audio(root / "listen" / f"{stem}-measured.wav", md.wet_measured, ir.fs)
+        audio_io.write_audio(root / "listen" / f"{stem}-modelled.wav", md.wet_modelled, ir.fs)
+        audio_io.write_json(root / "models" / f"{stem}-report.json",
+                            {"report": md.result.report.to_dict(), "i3dl2": md.i3dl2.to_dict()})
+        plots = _plots(root / "plots", stem, h, ir.fs, figures, md, t)
+        rows.append((t, ir, doc, md, plots))
     print(_summary(rows, root))
     return 0
+
+
+def _plots(folder: Path, stem: str, h, fs: int, figures, md, t) -> bool:
+    """The analysis and model-fit figures; skipped with a note when matplotlib is missing."""
+    from measure.cli._common import warn
+    from measure.errors import MissingDependencyError
+
+    try:
+        from measure.parameters import analyze_ir
+        from measure.report import write_analysis_plot, write_model_plot
+
+        write_analysis_plot(folder / f"{stem}.png", h, fs, figures,
+                            title=f"{t.room.name}, {t.position}: measured")
+        modelled = analyze_ir(md.model_ir, fs)
+        write_model_plot(folder / f"{stem}-model.png", figures, modelled, md.result.report,
+                         title=f"{t.room.name}, {t.position}: measured vs model")
+    except MissingDependencyError as err:
+        warn(f"no plots: {err}")
+        return False
+    return True
 
 
 def _fmt(v, spec: str, unit: str = "") -> str:
@@ -84,22 +120,38 @@ def _fmt(v, spec: str, unit: str = "") -> str:
 def _summary(rows, root: Path) -> str:
     from measure.demo import BUILDING
 
-    head = (f"{'space':<10} {'position':<10} {'T_mid':>7} {'EDT_mid':>8} {'C80':>7} "
-            f"{'D50':>5} {'STI':>5} {'PNR':>6} {'drift':>8}")
+    head = (f"{'space':<10} {'position':<10} {'T_mid':>6} {'EDT_mid':>7} {'C80':>6} "
+            f"{'D50':>5} {'STI':>5} {'PNR':>6} {'drift':>7} {'model':>6} {'I3DL2 DecayTime':>15}")
     lines = [f"{BUILDING} (invented), measured with virtual equipment", "", head,
              "-" * len(head)]
-    for t, ir, doc in rows:
+    plotted = False
+    for t, ir, doc, md, plots in rows:
         sn = doc.get("single_numbers", {})
-        sti = doc.get("sti")
-        sti_v = sti
+        worst = md.result.report.max_abs_jnd()
+        worst_t = max((abs(v) for k, v in worst.items()
+                       if k in ("edt_s", "t30_s") and v is not None), default=None)
+        decay = md.i3dl2.to_dict().get("values", {}).get("DecayTime")
+        plotted = plotted or plots
         lines.append(
-            f"{t.room.name:<10} {t.position:<10} {_fmt(sn.get('t_mid_s'), '7.2f')} "
-            f"{_fmt(sn.get('edt_mid_s'), '8.2f')} {_fmt(sn.get('c80_mid_db'), '7.1f')} "
-            f"{_fmt(sn.get('d50_mid'), '5.2f')} {_fmt(sti_v, '5.2f')} "
-            f"{ir.peak_to_noise_db[0]:6.1f} {ir.drift_ppm:+7.1f}p")
-    lines += ["", "T_mid, EDT_mid in s (mean of 500 Hz and 1 kHz), C80 in dB, PNR = "
-              "peak-to-noise in dB, drift in ppm.",
-              f"Look in {root}/: sweeps/ (what was played), captures/ (raw takes + sidecars), "
-              "irs/ (impulse responses), figures/ (per-band figures as JSON).",
-              f"Per-band tables: measure analyze {root}/irs/<space>-<position>.wav"]
+            f"{t.room.name:<10} {t.position:<10} {_fmt(sn.get('t_mid_s'), '6.2f')} "
+            f"{_fmt(sn.get('edt_mid_s'), '7.2f')} {_fmt(sn.get('c80_mid_db'), '6.1f')} "
+            f"{_fmt(sn.get('d50_mid'), '5.2f')} {_fmt(doc.get('sti'), '5.2f')} "
+            f"{ir.peak_to_noise_db[0]:6.1f} {ir.drift_ppm:+6.1f}p "
+            f"{_fmt(worst_t, '5.1f')}J {_fmt(decay, '13.2f')} s")
+    lines += ["",
+              "T_mid, EDT_mid: s, mean of 500 Hz and 1 kHz; C80: dB; PNR: peak-to-noise, dB; "
+              "drift: ppm;",
+              "model: the fitted model's worst EDT/T30 difference from the measurement, in "
+              "ISO 3382-1 JNDs.",
+              "",
+              f"Look in {root}/:",
+              "  sweeps/    what was played (WAV + sidecar)",
+              "  captures/  the raw takes and their sidecars, as `measure capture` files them",
+              "  irs/       recovered impulse responses (32-bit float) + latency, drift, distortion",
+              "  figures/   per-band room figures (the `measure analyze --json` document)",
+              "  models/    compact models (MODEL.json), their renders and fit reports with I3DL2",
+              "  listen/    dry.wav, and each space measured vs modelled: compare by ear"]
+    if plotted:
+        lines.append("  plots/     decay curves per band and measured-vs-model charts (PNG)")
+    lines.append(f"Per-band tables: measure analyze {root}/irs/<space>-<position>.wav")
     return "\n".join(lines)
