@@ -98,6 +98,8 @@ EDT_TOLERANCE = 0.01
 ENVELOPE_DAMPING = 1.0
 #: How the bands are filtered for the envelope fit (measure.bands.filter_bands mode).
 MATCH_FILTERING = "reversed"
+#: Smallest decay range, dB, for a decay time fitted below T20's range (see _decay_time).
+LATE_FIT_MIN_DB = 10.0
 #: Envelope gains are kept within these limits, dB.
 ENVELOPE_LIMITS_DB = (-40.0, 20.0)
 #: Calibration passes (render, re-analyse, adjust).
@@ -266,6 +268,27 @@ def _band_signals(h: np.ndarray, fs: int, centers_hz: np.ndarray) -> np.ndarray:
     return irfft(spec[np.newaxis, :] * masks, n=n_fft, axis=1)[:, :n]
 
 
+def _decay_time(bf, fs: int) -> float | None:
+    """The band's late decay time: T30, else T20, else a fit of whatever range its Schroeder
+    curve has below the first 5 dB (at least LATE_FIT_MIN_DB of it, ending 5 dB above the
+    truncation level), else EDT (which a strong direct sound makes much shorter than the late
+    decay, hence the last resort)."""
+    from measure.decay import fit_decay
+
+    if bf.t30_s is not None:
+        return bf.t30_s
+    if bf.t20_s is not None:
+        return bf.t20_s
+    edc = np.asarray(bf.decay.edc_db)
+    if edc.size > 8 and np.isfinite(edc[-1]):
+        lo = float(edc[-1]) + 5.0
+        if lo <= -5.0 - LATE_FIT_MIN_DB:
+            fit = fit_decay(edc, fs, -5.0, lo)
+            if fit is not None and fit[0] > 0:
+                return float(fit[0])
+    return bf.edt_s
+
+
 def _fill_missing(values: list[float | None], what: str) -> list[float]:
     idx = [i for i, v in enumerate(values) if v is not None and v > 0]
     if not idx:
@@ -328,9 +351,7 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
 
     bands = tuple(b.band for b in measured.bands)
     centers = np.array([b.center_hz for b in bands])
-    t_target = _fill_missing([b.t30_s if b.t30_s is not None else
-                              (b.t20_s if b.t20_s is not None else b.edt_s)
-                              for b in measured.bands], "decay time")
+    t_target = _fill_missing([_decay_time(b, fs) for b in measured.bands], "decay time")
     shift = int(round(t0 * fs))
     n = h.size
     late = LateReverb(tuple(float(v) for v in centers), tuple(t_target), (0.0,) * centers.size,
@@ -347,11 +368,16 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     f_meas = filter_bands(h, fs, bands, mode=MATCH_FILTERING)
     f_early = filter_bands(render_early(base, fs, n), fs, bands, mode=MATCH_FILTERING)
     horizon_s = (n - shift) / fs
+    noise = _noise_power(measured, f_meas)
     segs = _band_segments(measured, t0, horizon_s)
     want = []
     for i, e in enumerate(segs):
         idx = np.clip(np.round(e * fs).astype(int) + shift, 0, n)
-        sm = np.add.reduceat(f_meas[i, : idx[-1]] ** 2, idx[:-1])
+        # background noise (if any) is not room: its mean power, measured after the band's
+        # Lundeby truncation point, is taken off every segment (Chu's subtraction, as the
+        # decay analysis does)
+        raw = np.add.reduceat(f_meas[i, : idx[-1]] ** 2, idx[:-1])
+        sm = np.maximum(raw - noise[i] * np.diff(idx), 1e-3 * raw + 1e-300)
         se = np.add.reduceat(f_early[i, : idx[-1]] ** 2, idx[:-1])
         # the late part must supply what the direct sound and echoes do not
         want.append((idx, np.maximum(sm - se, 1e-3 * sm)))
@@ -444,6 +470,21 @@ def _next_tilt(history: list[tuple[float, float]], tilt: float, err: float,
     return float(np.clip(tilt - gain * err, -TILT_LIMIT_DB, TILT_LIMIT_DB))
 
 
+def _noise_power(measured, f_meas: np.ndarray) -> np.ndarray:
+    """Per band, the mean power of the band signal after its Lundeby truncation point (0 when
+    the decay analysis found no noise floor or too little signal is left after it)."""
+    fs = measured.fs
+    out = np.zeros(len(measured.bands))
+    for i, bf in enumerate(measured.bands):
+        if not bf.decay.noise_floor_found:
+            continue
+        start = measured.onset_index + int(round(bf.decay.truncation_s * fs))
+        tail = f_meas[i, start:]
+        if tail.size >= int(0.05 * fs):
+            out[i] = float(np.mean(tail[tail.size // 5:] ** 2))
+    return out
+
+
 def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
     """Per band, segment edges (s re the direct sound) for the envelope correction.
 
@@ -472,8 +513,10 @@ def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
             if below.size:
                 marks.append(below[0] / fs + lead)
         width = max(ENVELOPE_MIN_WIDTH_S, ENVELOPE_MIN_BT / (bf.band.f_hi_hz - bf.band.f_lo_hz))
-        marks = sorted(m for m in set(marks) if LATE_START_S <= m < min(horizon_s,
-                                                                         ENVELOPE_MAX_S))
+        limit = min(horizon_s, ENVELOPE_MAX_S)
+        if bf.decay.noise_floor_found:  # nothing past the truncation point: that is noise
+            limit = min(limit, bf.decay.truncation_s + lead)
+        marks = sorted(m for m in set(marks) if LATE_START_S <= m < limit)
         edges = [marks[0]]
         for m in marks[1:]:
             if m - edges[-1] >= width:
