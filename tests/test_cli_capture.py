@@ -71,7 +71,7 @@ def sweeps(tmp_path_factory) -> dict[str, Path]:
     """Short sweeps made by `measure sweep` (so tests stay fast), up to Nyquist."""
     d = tmp_path_factory.mktemp("sweeps")
     made = {
-        "s48": ["--rate", "48000", "--duration", "1", "--gap", "0.5", "--lead-in", "0.3"],
+        "s48": ["--rate", "48000", "--duration", "0.5", "--gap", "0.3", "--lead-in", "0.3"],
         "short": ["--rate", "48000", "--duration", "0.5", "--gap", "0.2", "--lead-in", "0.2"],
         "loud": ["--rate", "48000", "--duration", "0.5", "--gap", "0.2", "--lead-in", "0.2",
                  "--level", "0"],
@@ -241,12 +241,14 @@ def test_clipping_is_caught_by_the_level_check_and_in_the_take(audio_server, swe
     cap = tmp_path / "caps"
     common = ["--sweep", str(sweeps["loud"]), "--room", "lab", "--device", LOOPBACK_DEVICE,
               "--captures", str(cap), "--yes"]
-    # One after the other: both play on output 1 and record input 1 of the shared loopback.
-    # A 0 dBFS sweep through the bit-exact loopback reaches full scale. The level check stops at
-    # the first clipped sample, before the take, and nothing is recorded.
-    checked = measure("capture", *common, "--position", "P1", cwd=tmp_path)
-    # Without the level check the take is kept but marked for redo, saying why.
-    unchecked = measure("capture", *common, "--position", "P2", "--no-level-check", cwd=tmp_path)
+    # At once, on separate channels of the loopback (output N returns on input N only).
+    checked, unchecked = measure_concurrently(
+        # A 0 dBFS sweep through the bit-exact loopback reaches full scale. The level check
+        # stops at the first clipped sample, before the take, and nothing is recorded.
+        ["capture", *common, "--position", "P1"],
+        # Without the level check the take is kept but marked for redo, saying why.
+        ["capture", *common, "--position", "P2", "--no-level-check", "--input-channels", "2",
+         "--output-channels", "2"], cwd=tmp_path)
     r = checked
     assert r.returncode == 2, r.stdout + r.stderr
     assert "error: the level check clipped the input" in r.stderr
