@@ -31,6 +31,10 @@ unless the message says otherwise), 130/143 interrupted (the message says what w
 SAFETY: wear hearing protection near loud loudspeakers; start at low volume and raise it step
 by step; sweeps at high level can destroy tweeters; keep people and animals out of the room."""
 
+#: Harmonic distortion above this, in percent of the linear response, earns a note (common
+#: practice: a loudspeaker within its rated range stays below a few percent).
+DISTORTION_NOTE_PERCENT = 3.0
+
 SAFETY_TEXT = """\
 Before anything plays:
   - wear hearing protection when you are near a loudspeaker playing loud;
@@ -410,6 +414,7 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
 
     ref_row = None if loopback is None else list(input_channels).index(loopback)
     extra: list[str] = []
+    extra_notes: list[str] = []
     # Digital silence holds no sweep: say so instead of deconvolving nothing.
     if ref_row is not None and stats[ref_row].peak_dbfs is None:
         extra.append(
@@ -437,7 +442,14 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
             analysis["channels"].append({
                 "label": labels[row], "file_channel": row + 1,
                 "latency_s": ir.latency_s[k], "latency_samples": ir.latency_s[k] * fs,
-                "peak_to_noise_db": pnr[row]})
+                "peak_to_noise_db": pnr[row],
+                "distortion_percent": {f"H{hd.order}": hd.percent for hd in ir.harmonics[k]}})
+            loud = [f"H{hd.order} {hd.percent:.1f} %" for hd in ir.harmonics[k]
+                    if hd.percent is not None and hd.percent > DISTORTION_NOTE_PERCENT]
+            if loud:
+                extra_notes.append(
+                    f"{labels[row]}: harmonic distortion {', '.join(loud)}: the loudspeaker or "
+                    "amplifier may be driven too hard; lower the level and compare")
         analysis["drift_ppm"] = ir.drift_ppm
         analysis["n_averaged"] = ir.n_averaged
         analysis["referenced_to_loopback"] = ir.reference_channel is not None
@@ -448,7 +460,8 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
     verdict = judge_take(stats, n_xruns=n_xruns, channel_labels=labels, pnr_db=pnr, found=found,
                          same_device=same_device, has_loopback=loopback is not None,
                          drift_ppm=None if ir is None else ir.drift_ppm, extra=extra)
-    notes = list(verdict.notes) + ([] if ir is None else [f"IR: {w}" for w in ir.warnings])
+    notes = list(verdict.notes) + extra_notes + (
+        [] if ir is None else [f"IR: {w}" for w in ir.warnings])
     v = verdict.to_dict()
     v["notes"] = notes
     return {"analysis": analysis, "verdict": v,
