@@ -360,6 +360,10 @@ def test_without_portaudio_the_audio_commands_advise_and_the_rest_work(sweeps, t
                 str(tmp_path / "c"), "--sweep", str(sweeps["s48"]), cwd=tmp_path, env=env)
     assert r.returncode in (0, 1), r.stderr
     assert (tmp_path / "c" / "r" / "p-take1.json").exists()
+    r = measure("analyze", str(tmp_path / "c" / "r" / "p-take1.wav"), "--sweep",
+                str(sweeps["s48"]), "--json", cwd=tmp_path, env=env)
+    assert r.returncode == 0, r.stderr
+    assert json.loads(r.stdout)["sample_rate"] == SERVER_FS
     # Every other registered command starts (its help), and `measure ir` analyses the take.
     import importlib
 
