@@ -100,6 +100,9 @@ ENVELOPE_DAMPING = 1.0
 MATCH_FILTERING = "reversed"
 #: Smallest decay range, dB, for a decay time fitted below T20's range (see _decay_time).
 LATE_FIT_MIN_DB = 10.0
+#: Largest non-linearity of such a fit, ‰ (ISO 3382-2 Annex B calls 0–5 ‰ typical; twice the
+#: decay analysis's flag limit of 10 ‰ still passes a noisy but straight decay).
+LATE_FIT_MAX_XI = 20.0
 #: Envelope gains are kept within these limits, dB.
 ENVELOPE_LIMITS_DB = (-40.0, 20.0)
 #: Calibration passes (render, re-analyse, adjust).
@@ -271,8 +274,8 @@ def _band_signals(h: np.ndarray, fs: int, centers_hz: np.ndarray) -> np.ndarray:
 def _decay_time(bf, fs: int) -> float | None:
     """The band's late decay time: T30, else T20, else a fit of whatever range its Schroeder
     curve has below the first 5 dB (at least LATE_FIT_MIN_DB of it, ending 5 dB above the
-    truncation level), else EDT (which a strong direct sound makes much shorter than the late
-    decay, hence the last resort)."""
+    truncation level), else None (the band then takes its neighbours' decay; EDT, which a
+    strong direct sound makes much shorter than the late decay, only when no band has any)."""
     from measure.decay import fit_decay
 
     if bf.t30_s is not None:
@@ -284,9 +287,10 @@ def _decay_time(bf, fs: int) -> float | None:
         lo = float(edc[-1]) + 5.0
         if lo <= -5.0 - LATE_FIT_MIN_DB:
             fit = fit_decay(edc, fs, -5.0, lo)
-            if fit is not None and fit[0] > 0:
+            # and only a straight decay (ξ = 1000·(1 − r²) at most LATE_FIT_MAX_XI ‰)
+            if fit is not None and fit[0] > 0 and 1000.0 * (1.0 - fit[1]) <= LATE_FIT_MAX_XI:
                 return float(fit[0])
-    return bf.edt_s
+    return None
 
 
 def _fill_missing(values: list[float | None], what: str) -> list[float]:
@@ -351,7 +355,10 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
 
     bands = tuple(b.band for b in measured.bands)
     centers = np.array([b.center_hz for b in bands])
-    t_target = _fill_missing([_decay_time(b, fs) for b in measured.bands], "decay time")
+    decays = [_decay_time(b, fs) for b in measured.bands]
+    if all(d is None for d in decays):  # last resort: the early decay
+        decays = [b.edt_s for b in measured.bands]
+    t_target = _fill_missing(decays, "decay time")
     shift = int(round(t0 * fs))
     n = h.size
     late = LateReverb(tuple(float(v) for v in centers), tuple(t_target), (0.0,) * centers.size,
