@@ -2,27 +2,30 @@
 
 :func:`fit_model` runs the stages in order:
 
-1. **Direct sound**: the ISO 3382-1 onset (:func:`measure.decay.onset_index`), the peak within
-   1 ms after it, refined to a fraction of a sample by a parabola through |h|.
-2. **Echoes**: :func:`measure.model.echoes.find_echoes` (delays re the direct sound, gains re
-   its amplitude).
-3. **Coloration**: :func:`measure.model.coloration.fit_coloration` on the direct sound (the
-   response up to just before the first echo), so the filter is the colour of the direct path
-   and does not count the echoes or the reverberation a second time.
-4. **Mixing time**: :func:`measure.model.mixing.mixing_time` (normalised echo density).
-5. **Late part**: per octave band (the bands of :func:`measure.parameters.analyze_ir`) a decay
-   time from the measured T30 (T20, then EDT when T30 is missing), the band's energy after the
-   direct sound less what the early part carries, and a per-band network
-   (:mod:`measure.model.late`).
-6. **Envelope**: the late part's energy in each band, in short segments after the direct sound
-   (knots 2.5 ms to ~0.4 s), is matched to the measured residual (measured band minus the
-   modelled direct sound and echoes) by a gain per knot. Beyond the last knot the network's
-   exponential decay alone continues.
-7. **Calibration**: the whole model is rendered and re-analysed with
-   :func:`measure.parameters.analyze_ir`; each band's decay time is scaled by measured T30 over
-   modelled T30 and the envelope is re-fitted, a few times (modeling.md §5.2's analysis by
-   synthesis). The octave filters of the analysis pass part of the neighbouring bands and a
-   single rendering fluctuates around its mean decay; this loop takes both out.
+1. **Direct sound and echoes**: :func:`measure.model.echoes.find_echoes` (the direct sound's
+   time to a fraction of a sample; echo delays re the direct sound, gains re its amplitude),
+   searched up to the mixing time (:func:`measure.model.mixing.mixing_time`, normalised echo
+   density; None when it is never reached).
+2. **Coloration**: :func:`measure.model.coloration.fit_coloration` on the direct sound (the
+   response up to just before the first echo, at most 5 ms), so the filter is the colour of
+   the direct path and does not count the echoes or the reverberation a second time.
+3. **Late part**: per octave band (the bands of :func:`measure.parameters.analyze_ir`) a
+   decay time (T30, else T20, else a straight fit of whatever decay range there is, else the
+   neighbouring bands'), the band's energy after the direct-sound window less what the
+   direct sound and echoes carry, and a per-band network (:mod:`measure.model.late`),
+   starting 2.5 ms after the direct sound.
+4. **Envelope**: one gain per time segment and band makes the late part supply what the
+   measured band (noise power taken off) has beyond the modelled direct sound and echoes.
+   Segments end where the measured band decay crosses −2.5, −5, … −20 dB, at the 50 and
+   80 ms clarity splits, and 40 dB below the level at the late start; both signals are seen
+   through the analysis's own octave filters (time-reversed, as for the decay figures).
+5. **Calibration**: the model is rendered and re-analysed with
+   :func:`measure.parameters.analyze_ir`, :data:`N_CALIBRATION_PASSES` times; after each pass
+   each band's decay time is scaled by measured over modelled T30, and a tilt of the wanted
+   early energy about the band's −10 dB time (less before, more after) is tuned secant-wise
+   on the EDT (modeling.md §5.2's analysis by synthesis). The octave filters pass part of the
+   neighbouring bands, a single rendering fluctuates around its mean decay, and the EDT of a
+   room with a strong direct sound hangs on a fraction of a dB: this loop takes all three out.
 
 The fit report (:class:`FitReport`) compares, band by band, EDT, T20, T30, C50, C80, D50 and Ts
 of the measurement and of the rendered model, and gives the difference in ISO 3382-1 JNDs
@@ -94,8 +97,6 @@ ENVELOPE_TAIL_DB = 40.0
 TILT_GAIN_DB = 15.0
 TILT_LIMIT_DB = 12.0
 EDT_TOLERANCE = 0.01
-#: Damping of the envelope's fixed-point steps (1: full step).
-ENVELOPE_DAMPING = 1.0
 #: How the bands are filtered for the envelope fit (measure.bands.filter_bands mode).
 MATCH_FILTERING = "reversed"
 #: Smallest decay range, dB, for a decay time fitted below T20's range (see _decay_time).
@@ -244,31 +245,6 @@ def compare_figures(measured, modelled, *, lsd_db: float | None = None,
                     diff = (o - m) / _jnd(key)
             cells.append(ReportCell(mb.label, key, m, o, diff))
     return FitReport(tuple(cells), tuple(labels), lsd_db, fit_seconds)
-
-
-def _direct_sound(h: np.ndarray, fs: int) -> tuple[int, float, float]:
-    """Index, fractional time (s) and signed amplitude of the direct sound's peak."""
-    from measure._dsp import parabolic_peak
-    from measure.decay import onset_index
-
-    on = onset_index(h, fs)
-    w = max(1, int(0.001 * fs))
-    i = on + int(np.argmax(np.abs(h[on: on + w])))
-    pos = parabolic_peak(np.abs(h), i)
-    return i, pos / fs, float(h[i])
-
-
-def _band_signals(h: np.ndarray, fs: int, centers_hz: np.ndarray) -> np.ndarray:
-    """``h`` split by the late part's complementary band masks (zero phase), (bands, n)."""
-    from scipy.fft import irfft, next_fast_len, rfft
-
-    from measure.model.late import band_masks
-
-    n = h.size
-    n_fft = next_fast_len(n + int(0.02 * fs), real=True)
-    spec = rfft(h, n_fft)
-    masks = band_masks(centers_hz, np.arange(spec.size) * fs / n_fft)
-    return irfft(spec[np.newaxis, :] * masks, n=n_fft, axis=1)[:, :n]
 
 
 def _decay_time(bf, fs: int) -> float | None:
@@ -433,7 +409,7 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
             for i, (idx, w) in enumerate(want):
                 got = np.add.reduceat(f_late[i, : idx[-1]] ** 2, idx[:-1])
                 w = w * 10.0 ** (tilt[i] * tilt_shape[i] / 10.0)
-                step = ENVELOPE_DAMPING * 10.0 * np.log10(w / np.maximum(got, 1e-300))
+                step = 10.0 * np.log10(w / np.maximum(got, 1e-300))
                 env[i] = np.clip(env[i] + step, *ENVELOPE_LIMITS_DB)
         late = late.replace(envelope_edges_s=tuple(tuple(float(v) for v in e) for e in segs),
                             envelope_db=tuple(tuple(float(v) for v in e) for e in env))
