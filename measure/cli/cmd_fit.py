@@ -31,6 +31,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--echoes", type=int, default=None, metavar="K",
                    help="number of discrete echoes (default: those that stand out of the diffuse "
                         "background)")
+    p.add_argument("--late-from", choices=("direct", "mixing"), default="direct",
+                   help="start the late reverberation 2.5 ms after the direct sound, its envelope "
+                        "carrying the diffuse energy before the mixing time (default), or at the "
+                        "mixing time")
     p.add_argument("--channel", type=int, default=1, metavar="N",
                    help="channel of IR.wav to fit, 1-based (default 1)")
     p.add_argument("--json", action="store_true",
@@ -70,8 +74,10 @@ def run(args: argparse.Namespace) -> int:
             f"channel(s); choose one of 1..{audio.n_channels}")
     h = audio.x[args.channel - 1]
     source = {"file": Path(args.ir).name, "sha256": audio_io.file_sha256(args.ir),
-              "channel": args.channel, "order": args.order, "echoes": args.echoes}
-    result = fit_model(h, audio.fs, order=args.order, n_echoes=args.echoes, source=source)
+              "channel": args.channel, "order": args.order, "echoes": args.echoes,
+              "late_from": args.late_from}
+    result = fit_model(h, audio.fs, order=args.order, n_echoes=args.echoes,
+                       late_from=args.late_from, source=source)
     i3 = estimate_i3dl2(h, audio.fs, result.model)
     m = result.model
     model = RoomModel(fit_fs=m.fit_fs, direct_delay_s=m.direct_delay_s, direct_gain=m.direct_gain,

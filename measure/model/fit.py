@@ -13,7 +13,7 @@
    decay time (T30, else T20, else a straight fit of whatever decay range there is, else the
    neighbouring bands'), the band's energy after the direct-sound window less what the
    direct sound and echoes carry, and a per-band network (:mod:`measure.model.late`),
-   starting 2.5 ms after the direct sound.
+   starting 2.5 ms after the direct sound (or at the mixing time: ``late_from``).
 4. **Envelope**: one gain per time segment and band makes the late part supply what the
    measured band (noise power taken off) has beyond the modelled direct sound and echoes.
    Segments end where the measured band decay crosses −2.5, −5, … −20 dB, at the 50 and
@@ -38,11 +38,11 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
-from measure._validate import check_fs, check_signal
+from measure._validate import check_choice, check_fs, check_signal
 from measure.errors import FitError, ParameterError
 from measure.model.late import (
     LateReverb,
@@ -81,6 +81,9 @@ REPORT_PARAMETERS: tuple[tuple[str, str, str], ...] = (
 LATE_START_S = 0.0025
 #: Half-Hann fade-in of the late part, s.
 LATE_FADE_S = 0.001
+#: With late_from="mixing": the late part fades in over this time, ending at the mixing time.
+MIXING_FADE_S = 0.005
+LATE_FROM: tuple[str, ...] = ("direct", "mixing")
 #: Envelope segments (see _band_segments): the 50 and 80 ms clarity splits, one edge per
 #: ENVELOPE_STEP_DB of measured band decay down to ENVELOPE_DEPTH_DB (covering the EDT range),
 #: no segment narrower than ENVELOPE_MIN_BT over the band's bandwidth (an octave filter smears
@@ -279,6 +282,7 @@ def _fill_missing(values: list[float | None], what: str) -> list[float]:
 
 
 def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None = None,
+              late_from: Literal["direct", "mixing"] = "direct",
               source: dict | None = None) -> FitResult:
     """Fit the compact room model to an impulse response and report how close it comes.
 
@@ -293,6 +297,13 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     n_echoes : int, >= 0, optional
         Number of discrete echoes; default: as many as stand out of the diffuse background
         (:func:`measure.model.echoes.find_echoes`'s gain and prominence criteria).
+    late_from : {"direct", "mixing"}
+        Where the late part starts: 2.5 ms after the direct sound, its envelope then carrying
+        the diffuse energy that arrives before the mixing time (default), or at the mixing time
+        (5 ms fade-in), everything before it left to the direct sound and the echoes. On the
+        virtual rooms of the tests the default keeps 93 % of the EDT/T30/C80 cells within one
+        JND against 86 % from the mixing time (measured with both seeds 0 and 1), because the
+        diffuse energy before the mixing time is then missing from EDT and C80.
     source : dict, optional
         Written into the model's ``source`` (e.g. the file name).
 
@@ -317,6 +328,7 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     if n_echoes is not None and (isinstance(n_echoes, bool) or int(n_echoes) != n_echoes
                                  or n_echoes < 0):
         raise ParameterError(f"n_echoes={n_echoes!r} must be a whole number >= 0")
+    check_choice(late_from, "late_from", LATE_FROM)
 
     from measure.bands import filter_bands
     from measure.model.render import render_early, render_model
@@ -337,8 +349,11 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     t_target = _fill_missing(decays, "decay time")
     shift = int(round(t0 * fs))
     n = h.size
+    late_start, fade = LATE_START_S, LATE_FADE_S
+    if late_from == "mixing" and mixing_s is not None:
+        late_start, fade = max(LATE_START_S, mixing_s - MIXING_FADE_S), MIXING_FADE_S
     late = LateReverb(tuple(float(v) for v in centers), tuple(t_target), (0.0,) * centers.size,
-                      LATE_START_S, LATE_FADE_S, nominal_delays_s(max(t_target)))
+                      late_start, fade, nominal_delays_s(max(t_target)))
     base = RoomModel(fit_fs=fs, direct_delay_s=t0,
                      direct_gain=1.0 if coloration is not None else float(ech.direct_gain),
                      coloration=coloration, echoes=tuple(echoes), late=late,
@@ -352,7 +367,7 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     f_early = filter_bands(render_early(base, fs, n), fs, bands, mode=MATCH_FILTERING)
     horizon_s = (n - shift) / fs
     noise = _noise_power(measured, f_meas)
-    segs = _band_segments(measured, t0, horizon_s)
+    segs = _band_segments(measured, t0, horizon_s, late_start)
     want = []
     for i, e in enumerate(segs):
         idx = np.clip(np.round(e * fs).astype(int) + shift, 0, n)
@@ -367,7 +382,7 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     # initial level: the measured band energy after the direct-sound window, less the early part
     stop = np.array([min(n, int(round(measured.onset_index + bf.decay.truncation_s * fs)))
                      for bf in measured.bands])
-    start = shift + int(round(LATE_START_S * fs))
+    start = shift + int(round(late_start * fs))
     levels = []
     for i in range(centers.size):
         e = float(np.sum(f_meas[i, start: stop[i]] ** 2) - np.sum(f_early[i, start: stop[i]] ** 2))
@@ -468,7 +483,7 @@ def _noise_power(measured, f_meas: np.ndarray) -> np.ndarray:
     return out
 
 
-def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
+def _band_segments(measured, t0: float, horizon_s: float, late_start: float) -> list[np.ndarray]:
     """Per band, segment edges (s re the direct sound) for the envelope correction.
 
     Edges where the measured band EDC crosses 0, −ENVELOPE_STEP_DB, −2·ENVELOPE_STEP_DB ...
@@ -482,7 +497,7 @@ def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
     out = []
     for bf in measured.bands:
         edc = bf.decay.edc_db
-        marks = [LATE_START_S, *ENVELOPE_SPLITS_S]
+        marks = [late_start, *ENVELOPE_SPLITS_S]
         for level in np.arange(-ENVELOPE_STEP_DB, -ENVELOPE_DEPTH_DB - 1e-9, -ENVELOPE_STEP_DB):
             below = np.flatnonzero(edc <= level)
             if below.size:
@@ -490,7 +505,7 @@ def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
         # one long last segment down to where the decay has fallen ENVELOPE_TAIL_DB below its
         # level after the direct sound: it anchors the late energy (C80's denominator) even
         # when a strong direct sound makes the EDC reach −ENVELOPE_DEPTH_DB early
-        i_start = max(0, int(round((LATE_START_S - lead) * fs)))
+        i_start = max(0, int(round((late_start - lead) * fs)))
         if i_start < edc.size:
             below = np.flatnonzero(edc <= edc[i_start] - ENVELOPE_TAIL_DB)
             if below.size:
@@ -499,7 +514,7 @@ def _band_segments(measured, t0: float, horizon_s: float) -> list[np.ndarray]:
         limit = min(horizon_s, ENVELOPE_MAX_S)
         if bf.decay.noise_floor_found:  # nothing past the truncation point: that is noise
             limit = min(limit, bf.decay.truncation_s + lead)
-        marks = sorted(m for m in set(marks) if LATE_START_S <= m < limit)
+        marks = sorted(m for m in set(marks) if late_start <= m < limit)
         edges = [marks[0]]
         for m in marks[1:]:
             if m - edges[-1] >= width:
