@@ -118,6 +118,11 @@ def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
     target.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     try:
+        # mkstemp makes the file owner-only; give it the permissions of any new file
+        umask = os.umask(0)
+        os.umask(umask)
+        with contextlib.suppress(OSError):
+            os.chmod(tmp, 0o666 & ~umask)
         with os.fdopen(fd, mode) as fh:
             yield fh
             fh.flush()

@@ -53,6 +53,8 @@ DETECTION_DB = 30.0
 ARRIVAL_SEARCH_S = 0.1
 #: Samples at or beyond this magnitude count as clipped.
 CLIP_LEVEL = 0.999
+#: Time kept before the direct sound of each harmonic response.
+HARMONIC_PRE_S = 0.005
 #: Group-delay fit band for the single-sweep drift estimate (measurement.md §1.6).
 DRIFT_FIT_BAND_HZ = (1500.0, 14000.0)
 
@@ -280,16 +282,24 @@ def _fine_position(d: np.ndarray, p: int) -> float:
     return parabolic_peak(env, p)
 
 
-def _drift_from_phase(d: np.ndarray, p: int, sweep: Sweep, eps: float) -> float:
+def _drift_from_phase(d: np.ndarray, p: int, sweep: Sweep, eps: float, *,
+                      symmetric: bool = False) -> float:
     """Residual ε from the group delay of the direct sound at index ``p`` of ``d``.
 
     ``d`` is a deconvolution already corrected for drift ``eps``; a residual δε leaves the
     group delay τ(f) = τ0 + δε·L·ln(f/f1) (measurement.md §1.6), fitted to the unwrapped phase
-    of a tight, tapered window (−0.5 ms … +1.2 ms) over 1.5–14 kHz by weighted least squares.
+    of a tight, tapered window over 1.5–14 kHz by weighted least squares. The window reaches
+    −0.5 ms … +1.2 ms, room for the dispersion of an uncorrected drift; once the drift is
+    mostly removed a ``symmetric`` ±0.6 ms window is used, which cuts the band-limited
+    impulse's tails evenly and so adds no phase of its own (the uneven cut biased a perfect
+    loopback by 0.1–0.2 ppm).
     """
     spec = sweep.spec
     fs = spec.fs
-    pre, post = int(round(0.0005 * fs)), int(round(0.0012 * fs))
+    if symmetric:
+        pre = post = int(round(0.0006 * fs))
+    else:
+        pre, post = int(round(0.0005 * fs)), int(round(0.0012 * fs))
     if p - pre < 0 or p + post > d.size:
         return 0.0
     seg = d[p - pre:p + post].copy()
@@ -444,7 +454,7 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
         p_w = _relocate(np.abs(w), 2 * radius, sweep, fs)
         if not (correct_drift and starts.size == 1):
             break
-        resid = _drift_from_phase(w, p_w, sweep, eps)
+        resid = _drift_from_phase(w, p_w, sweep, eps, symmetric=True)
         if abs(resid) < 0.05e-6 or attempt == 2:
             break
         eps += resid
@@ -472,6 +482,9 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     # 4: read each channel's responses onto the player's clock and average the sweeps
     origins = fine - pre * stretch
     h_rows, harm_rows, arrivals = [], [], []
+    # The harmonic responses sit closer together than the linear one's pre-time allows.
+    pre_h = min(pre, int(round(HARMONIC_PRE_S * fs)))
+    keep: list[int] = []
     for c in channels:
         row = d[c]
         h_rows.append(_read_average(row, origins, n_len, sweep, eps, unstretch=unstretch,
@@ -491,13 +504,17 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
         hh = []
         for order in range(2, n_harmonics + 2):
             adv = spec.rate_constant_s * fs * math.log(order) * stretch
-            # up to where the next lower order (or the linear response) begins
-            room = spec.rate_constant_s * fs * math.log(order / (order - 1)) - 2 * pre
-            n_keep = min(n_len, pre + max(int(room), 0))
+            # from pre_h before its direct sound to where the next lower order begins, less
+            # the pre-time over which that one's band limit rings (as long as the linear's)
+            room = spec.rate_constant_s * fs * math.log(order / (order - 1)) - pre
+            n_keep = min(n_len - (pre - pre_h), pre_h + max(int(room), 0))
             hn = np.zeros(n_len)
             # harmonic responses serve the distortion figures: left on the recorder's clock
-            hn[:n_keep] = _read_average(row, origins - adv, n_keep, sweep, eps, unstretch=False)
+            hn[pre - pre_h:pre - pre_h + n_keep] = _read_average(
+                row, origins + (pre - pre_h) * stretch - adv, n_keep, sweep, eps,
+                unstretch=False)
             hh.append(hn)
+            keep.append(n_keep)
         harm_rows.append(hh)
     n_len = min(r.size for r in h_rows)
     h = np.asarray([r[:n_len] for r in h_rows])
@@ -516,7 +533,8 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
         pnr.append(10 * math.log10(peak_pow / noise_pow))
         noise_dbfs.append(10 * math.log10(noise_pow))
         harmonics.append(tuple(
-            _harmonic_level(h[i], harm[i, j], j + 2, sweep, pre)
+            _harmonic_level(h[i], harm[i, j], j + 2, sweep, pre=pre, pre_h=pre_h,
+                            post=keep[j] - pre_h)
             for j in range(harm.shape[1])))
     end = _trim_end(h, pre, fs)
     h = h[:, :end]
@@ -654,22 +672,29 @@ def _trim_end(h: np.ndarray, pre: int, fs: int) -> int:
     return int(min(n, max(ends)))
 
 
-def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, pre: int
-                    ) -> HarmonicDistortion:
-    """Energy of harmonic ``order`` at N·f over the fundamental's at f, over the excited band."""
+def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *, pre: int,
+                    pre_h: int, post: int) -> HarmonicDistortion:
+    """Energy of harmonic ``order`` at N·f over the fundamental's at f, over the excited band.
+
+    ``h1`` and ``hn`` have their direct sounds at index ``pre``; ``hn`` holds data from
+    ``pre − pre_h`` on. Both are compared up to ``post`` samples (at most 0.5 s) after their
+    direct sounds, so a room's reverberation weighs equally in both; ``h1`` keeps all its time
+    before the direct sound, where its band limit at f1 rings.
+    """
     spec = sweep.spec
     fs = spec.fs
-    n = min(h1.size, hn.size, int(0.5 * fs) + pre)
-    H1 = np.abs(np.fft.rfft(h1[:n])) ** 2
-    HN = np.abs(np.fft.rfft(hn[:n])) ** 2
-    f = np.fft.rfftfreq(n, 1.0 / fs)
+    post = max(min(post, int(0.5 * fs), h1.size - pre), 1)
+    H1 = np.abs(np.fft.rfft(h1[:pre + post])) ** 2
+    HN = np.abs(np.fft.rfft(hn[pre - pre_h:pre + post])) ** 2
+    f1_grid = np.fft.rfftfreq(pre + post, 1.0 / fs)
+    f = np.fft.rfftfreq(pre_h + post, 1.0 / fs)
     top = min(spec.f2_hz, 0.95 * fs / 2) / order
     lo = 2.0 * spec.f1_hz
     grid = np.geomspace(lo, top, 200) if top > lo * 1.5 else np.array([])
     adv = spec.harmonic_advance_s(order)
     if grid.size == 0:
         return HarmonicDistortion(order, adv, float("nan"), float("nan"))
-    p1 = np.interp(grid, f, H1)
+    p1 = np.interp(grid, f1_grid, H1)
     pn = np.interp(order * grid, f, HN)
     ratio = float(np.sum(pn)) / (float(np.sum(p1)) + 1e-300)
     level_db = 10 * math.log10(ratio + 1e-300)
