@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from measure._dsp import fractional_impulse
+from measure._dsp import HALF_WIDTH, fractional_impulse
 from measure._validate import check_fs, check_positive, check_signal
 from measure.errors import ParameterError
 from measure.model.late import render_late
@@ -32,10 +32,17 @@ def render_early(model: RoomModel, fs: int, n_samples: int) -> np.ndarray:
     fs = check_fs(fs)
     t0 = model.direct_delay_s * fs
     x = np.zeros(n_samples)
+    width = 2 * HALF_WIDTH + 2
     for delay_s, gain in ((0.0, 1.0), *model.echoes):
         pos = t0 + delay_s * fs
-        if pos < n_samples:
-            x += gain * fractional_impulse(n_samples, pos)
+        if pos >= n_samples:
+            continue
+        # the kernel is zero beyond HALF_WIDTH samples: build it locally and add it in place
+        base = int(np.floor(pos)) - HALF_WIDTH
+        kern = fractional_impulse(width, pos - base)
+        lo, hi = max(0, base), min(n_samples, base + width)
+        if hi > lo:
+            x[lo:hi] += gain * kern[lo - base: hi - base]
     x *= model.direct_gain
     if model.coloration is not None:
         x = sosfilt(coloration_sos(model.coloration, fs), x)
