@@ -215,8 +215,9 @@ def render_i3dl2(values: dict, fs: int, seconds: float) -> np.ndarray:
     """An impulse response of an I3DL2 set, as this package reads the guideline.
 
     * Direct sound: a unit impulse at t = 0.
-    * Room effect: amplitude 10^(Room/2000) at low frequencies; a first-order low-pass whose
-      gain at HFReference is 10^(RoomHF/2000) gives RoomHF (applied to reflections and reverb).
+    * Room effect: Room enters the two energies below (it is their common level at low
+      frequencies); a first-order low-pass whose gain at HFReference is 10^(RoomHF/2000) gives
+      RoomHF (applied to reflections and reverb).
     * Reflections: energy 10^((Room + Reflections)/1000) in six taps of equal energy and
       alternating sign, spread over [ReflectionsDelay, ReflectionsDelay + ReverbDelay).
     * Reverb: energy 10^((Room + Reverb)/1000), white at its start, from
@@ -234,7 +235,6 @@ def render_i3dl2(values: dict, fs: int, seconds: float) -> np.ndarray:
     v = values
     h = np.zeros(n)
     h[0] = 1.0
-    room_amp = 10.0 ** (v["Room"] / 2000.0)
     t_ref = v["ReflectionsDelay"]
     t_rev = t_ref + v["ReverbDelay"]
     span = max(v["ReverbDelay"], 1.0 / fs)
@@ -260,7 +260,6 @@ def render_i3dl2(values: dict, fs: int, seconds: float) -> np.ndarray:
         b = np.array([k, k]) / (1 + k)
         a = np.array([1.0, (k - 1) / (k + 1)])
         room = lfilter(b, a, room)
-    _ = room_amp  # the room level is carried by the energies above (Room is inside them)
     return h + room
 
 
