@@ -53,7 +53,6 @@ def run(args: argparse.Namespace) -> int:
     from measure.errors import ParameterError
     from measure.model.fit import fit_model
     from measure.model.i3dl2 import estimate_i3dl2
-    from measure.model.modelfile import RoomModel
 
     out = Path(args.out)
     if out.suffix.lower() != ".json":
@@ -80,9 +79,7 @@ def run(args: argparse.Namespace) -> int:
                        late_from=args.late_from, source=source)
     i3 = estimate_i3dl2(h, audio.fs, result.model)
     m = result.model
-    model = RoomModel(fit_fs=m.fit_fs, direct_delay_s=m.direct_delay_s, direct_gain=m.direct_gain,
-                      coloration=m.coloration, echoes=m.echoes, late=m.late,
-                      mixing_time_s=m.mixing_time_s, source=m.source, i3dl2=i3.to_dict())
+    model = m.replace(i3dl2=i3.to_dict())
     audio_io.write_json(out, model.to_dict())
     if args.plot is not None:
         from measure.model.render import render_model

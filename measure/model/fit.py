@@ -428,7 +428,7 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
                 env[i] = np.clip(env[i] + step, *ENVELOPE_LIMITS_DB)
         late = late.replace(envelope_edges_s=tuple(tuple(float(v) for v in e) for e in segs),
                             envelope_db=tuple(tuple(float(v) for v in e) for e in env))
-        model = _with_late(base, late)
+        model = base.replace(late=late)
         modelled = analyze_ir(render_model(model, fs, n / fs), fs, sti=False)
         for i, (mb, ob) in enumerate(zip(measured.bands, modelled.bands, strict=True)):
             if mb.t30_s is not None and ob.t30_s is not None:
@@ -525,13 +525,6 @@ def _band_segments(measured, t0: float, horizon_s: float, late_start: float) -> 
     return out
 
 
-def _with_late(model: RoomModel, late: LateReverb) -> RoomModel:
-    return RoomModel(fit_fs=model.fit_fs, direct_delay_s=model.direct_delay_s,
-                     direct_gain=model.direct_gain, coloration=model.coloration,
-                     echoes=model.echoes, late=late, mixing_time_s=model.mixing_time_s,
-                     source=model.source, i3dl2=model.i3dl2)
-
-
 def _find_echoes(h: np.ndarray, fs: int, n_echoes: int | None, mixing_abs_s: float | None):
     """Direct sound and echoes (measure.model.echoes), searched up to the mixing time."""
     from measure.model.echoes import find_echoes
@@ -618,11 +611,7 @@ def model_demo(h: Any, fs: int, *, dry: np.ndarray | None = None,
     fs = check_fs(fs)
     res = fit_model(h, fs, source=source)
     i3 = estimate_i3dl2(h, fs, res.model)
-    model = RoomModel(fit_fs=res.model.fit_fs, direct_delay_s=res.model.direct_delay_s,
-                      direct_gain=res.model.direct_gain, coloration=res.model.coloration,
-                      echoes=res.model.echoes, late=res.model.late,
-                      mixing_time_s=res.model.mixing_time_s, source=res.model.source,
-                      i3dl2=i3.to_dict())
+    model = res.model.replace(i3dl2=i3.to_dict())
     x = dry_demo_sound(fs) if dry is None else check_signal(dry, "dry sound", ndim=(1,))
     model_ir = render_model(model, fs, h.size / fs)
     wet_m = auralize(x, fs, h)

@@ -114,6 +114,12 @@ class RoomModel:
         if self.mixing_time_s is not None and not (self.mixing_time_s >= 0):
             raise ParameterError(f"mixing time {self.mixing_time_s!r} s must be >= 0 or null")
 
+    def replace(self, **changes: Any) -> RoomModel:
+        """A copy with some fields changed (validated again)."""
+        d = {k: getattr(self, k) for k in self.__slots__}
+        d.update(changes)
+        return RoomModel(**d)
+
     def to_dict(self) -> dict[str, Any]:
         """The JSON object of the model file (module notes)."""
         return {
