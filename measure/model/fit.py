@@ -489,8 +489,9 @@ def _band_segments(measured, t0: float, horizon_s: float, late_start: float) -> 
     Edges where the measured band EDC crosses 0, −ENVELOPE_STEP_DB, −2·ENVELOPE_STEP_DB ...
     down to −ENVELOPE_DEPTH_DB (so each segment holds a similar share of the decay that EDT
     and the clarity figures see), the 50 and 80 ms splits of C50/C80 (ISO 3382-1 A.2.3), and
-    where the EDC has fallen ENVELOPE_TAIL_DB below its level at the late start; merged where
-    closer than the band filter's time resolution (ENVELOPE_MIN_BT / bandwidth).
+    where the EDC has fallen ENVELOPE_TAIL_DB below its level at the late start. The late start
+    and the splits always stay; a decay mark is dropped where it is closer to a kept edge than
+    the band filter's time resolution (ENVELOPE_MIN_BT / bandwidth).
     """
     fs = measured.fs
     lead = measured.onset_index / fs - t0
@@ -514,11 +515,15 @@ def _band_segments(measured, t0: float, horizon_s: float, late_start: float) -> 
         limit = min(horizon_s, ENVELOPE_MAX_S)
         if bf.decay.noise_floor_found:  # nothing past the truncation point: that is noise
             limit = min(limit, bf.decay.truncation_s + lead)
-        marks = sorted(m for m in set(marks) if late_start <= m < limit)
-        edges = [marks[0]]
-        for m in marks[1:]:
-            if m - edges[-1] >= width:
+        # the late start and the clarity splits always stay (C50/C80 need them even where they
+        # are closer than the band's time resolution); a decay mark joins only where it is at
+        # least `width` from every edge already kept
+        fixed = sorted(m for m in {late_start, *ENVELOPE_SPLITS_S} if late_start <= m < limit)
+        edges = list(fixed)
+        for m in sorted(set(marks) - set(fixed)):
+            if late_start < m < limit and min(abs(m - e) for e in edges) >= width:
                 edges.append(m)
+        edges.sort()
         if len(edges) < 2:
             edges.append(min(horizon_s, edges[0] + width))
         out.append(np.array(edges))
