@@ -122,3 +122,20 @@ def test_estimate_is_calibrated_and_within_ranges(rng):
     d = s.to_dict()
     assert set(d["values"]) == set(I3DL2_RANGES)
     assert "Room" in s.to_text()
+
+
+def test_hf_reference_falls_back_at_low_rates(rng):
+    # At 8 kHz the guideline's 5 kHz HFReference is above Nyquist: the highest octave centre
+    # below 0.45·fs (2 kHz) is used and a note says so; everything stays within range.
+    fs = 8000
+    centers = (63.0, 125.0, 250.0, 500.0, 1000.0, 2000.0)
+    t60 = (1.0, 0.9, 0.8, 0.7, 0.6, 0.5)
+    late = LateReverb(centers, t60, tuple(-8.0 - i for i in range(6)), 0.0025, 0.001,
+                      nominal_delays_s(max(t60)))
+    model = RoomModel(fit_fs=fs, direct_delay_s=0.01, direct_gain=1.0, coloration=None,
+                      echoes=((0.004, 0.5),), late=late, mixing_time_s=0.03)
+    s = estimate_i3dl2(rng.standard_normal(fs), fs, model)
+    assert s.values["HFReference"] == 2000.0
+    assert any("HFReference" in note for note in s.notes)
+    for k, (lo, hi, _) in I3DL2_RANGES.items():
+        assert lo <= s.values[k] <= hi, k

@@ -75,6 +75,8 @@ TAP_FRACTIONS = (0.0, 0.13, 0.29, 0.45, 0.63, 0.82)
 N_CALIBRATION_PASSES = 4
 #: Band centres of the late part of the rendering (octaves 63 Hz–16 kHz).
 RENDER_BANDS_HZ = tuple(1000.0 * 2.0 ** k for k in range(-4, 5))
+#: The guideline's default HFReference, Hz.
+DEFAULT_HF_REFERENCE_HZ = 5000.0
 #: ReverbDelay used when the room shows no mixing time (a response too sparse), s.
 FALLBACK_REVERB_DELAY_S = 0.04
 
@@ -310,7 +312,7 @@ def _t30_at(h: np.ndarray, fs: int, bands, f_hz: float) -> float | None:
 
 
 def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
-                   hf_reference_hz: float = 5000.0) -> I3dl2Set:
+                   hf_reference_hz: float | None = None) -> I3dl2Set:
     """The room of a fitted model as an I3DL2 set, calibrated by rendering and re-analysing.
 
     Parameters
@@ -319,8 +321,9 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
         The measured impulse response the model was fitted to (for the echo density only).
     fs : int, > 0, Hz
     model : RoomModel
-    hf_reference_hz : float, Hz
-        HFReference (the guideline's default 5000 Hz); must lie below 0.45·fs.
+    hf_reference_hz : float, Hz, optional
+        HFReference; must lie below 0.45·fs. Default: the guideline's 5000 Hz, or at a rate
+        too low for it the highest octave centre below 0.45·fs (and a note says so).
 
     Returns
     -------
@@ -339,6 +342,14 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
     from measure.model.render import default_seconds, render_model
 
     fs = check_fs(fs)
+    notes = ["RoomRolloffFactor 0: one position cannot show a distance law",
+             "Density 100 %: no room-volume model"]
+    if hf_reference_hz is None:
+        hf_reference_hz = DEFAULT_HF_REFERENCE_HZ
+        if hf_reference_hz >= 0.45 * fs:
+            hf_reference_hz = max(f for f in RENDER_BANDS_HZ if f < 0.45 * fs)
+            notes.append(f"HFReference {hf_reference_hz:g} Hz: {DEFAULT_HF_REFERENCE_HZ:g} Hz "
+                         f"is above what {fs} Hz carries")
     if not (20.0 <= hf_reference_hz < 0.45 * fs):
         raise ParameterError(f"HFReference {hf_reference_hz:g} Hz must lie in 20 Hz..0.45·fs "
                              f"({0.45 * fs:g} Hz at {fs} Hz)")
@@ -349,8 +360,6 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
     t_hf = _late_t60(model, hf_reference_hz)
     target, clamped = measure_i3dl2(hm, fs, t0_s=t0, t1_s=t1, tm_s=tm, t60_lf_s=t_lf,
                                     t60_hf_s=t_hf, hf_reference_hz=hf_reference_hz)
-    notes = ["RoomRolloffFactor 0: one position cannot show a distance law",
-             "Density 100 %: no room-volume model"]
     diff = _diffusion(np.asarray(h, dtype=np.float64), fs,
                       t1 if t1 is not None else t0 + DIRECT_WINDOW_S,
                       tm if tm is not None else t0 + 0.08)
