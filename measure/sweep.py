@@ -284,7 +284,7 @@ def make_sweep(spec: SweepSpec) -> Sweep:
     >>> s = make_sweep(SweepSpec(fs=8000, f1_hz=50.0, f2_hz=4000.0, duration_s=1.0,
     ...                          repeats=2, gap_s=0.5, lead_in_s=0.25))
     >>> s.program.shape, round(float(abs(s.x).max()), 3)
-    ((14000,), 0.1)
+    ((26000,), 0.1)
     """
     x = sweep_signal(spec)
     program = np.zeros(spec.n_total)
