@@ -11,10 +11,13 @@ Steps (all in :func:`recover_ir`):
    follows from their spacing (sub-sample cross-correlation of consecutive responses); with one
    it follows from the direct sound's group delay, which a drifting clock makes grow as
    τ(f) = τ0 + ε·L·ln(f/f1) (measurement.md §1.6, derived there and verified numerically).
-4. Deconvolve again with the sweep as the recorder saw it (sampled at fs·(1+ε)), which undoes the
-   dispersion exactly, then read each response back onto the player's clock by band-limited
-   interpolation, which undoes the stretch of the room response and aligns the repeats to a
-   fraction of a sample before they are averaged coherently.
+4. Undo the drift in a window around each response: the dispersion that dividing by the nominal
+   sweep leaves is an all-pass whose phase follows in closed form from the sweep's stationary
+   phase (:func:`_dispersion_correction`); the stretch of the room response is undone by reading
+   the window's spectrum back on a scaled frequency grid (a chirp-z transform); and every repeat
+   is advanced by its fractional start with a linear phase, so the repeats are averaged
+   coherently to a fraction of a sample. Only the windows are processed, so the whole recording
+   is transformed once.
 5. Estimate the noise floor from the end of the window, the peak-to-noise ratio, the level of
    each harmonic response relative to the linear one, and trim the response a little before the
    direct sound and well into the noise.
