@@ -66,6 +66,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -755,6 +756,15 @@ def coloration_sos(coloration: Coloration, fs: int) -> NDArray[np.float64]:
     """Second-order sections of the coloration at sample rate ``fs``.
 
     At the fitting rate this is the stored ``sos`` (a copy); at any other rate the filter is
-    re-fitted by :func:`remap_coloration`.
+    re-fitted by :func:`remap_coloration` (remembered for the last few colorations and rates,
+    so rendering one model repeatedly at a foreign rate does not re-fit every time).
     """
-    return np.array(remap_coloration(coloration, fs).sos)
+    return np.array(_remapped_sos(coloration, int(fs)))
+
+
+@functools.lru_cache(maxsize=16)
+def _remapped_sos(coloration: Coloration, fs: int) -> NDArray[np.float64]:
+    # Coloration is eq=False: cached by identity (it is frozen, so that is safe)
+    sos = np.array(remap_coloration(coloration, fs).sos)
+    sos.setflags(write=False)
+    return sos
