@@ -54,6 +54,10 @@ __all__ = [
     "JND_TS_S",
     "JND_G_DB",
     "DIRECT_WINDOW_S",
+    "PLAUSIBLE_ENERGY_RATIO_DB",
+    "MIN_DECAY_TIME_S",
+    "MIN_FILTER_TIME_CONSTANTS",
+    "MAX_XI_PERMILLE",
     "CONTRACT_KEYS",
     "t20_uncertainty_s",
     "t30_uncertainty_s",
@@ -480,6 +484,79 @@ def _reversed_band_onset(y_rev: np.ndarray, onset: int, gd_s: float, fs: int) ->
     return lo + int(hits[0]) if hits.size else onset
 
 
+#: Largest |C50|, |C80| and |DRR| taken as a measurement, dB. A room's early and late parts
+#: differ by a few dB up to about 20 dB even close to the source (ISO 3382-1:2009 Table A.1
+#: lists C80 from −5 to +5 dB as the typical range for halls); beyond 60 dB the late sum is
+#: numerically empty, not measured (common practice for the bound).
+PLAUSIBLE_ENERGY_RATIO_DB: float = 60.0
+#: Shortest decay time (EDT, T20, T30) taken as a room's, s: a 60 dB decay within 20 ms is
+#: the loudspeaker or the analysis, not a room (the smallest enclosed spaces measured, car
+#: cabins, have T around 0.05 s; common practice).
+MIN_DECAY_TIME_S: float = 0.020
+#: A band's decay time must also span this many time constants of its band filter's slowest
+#: pole, 1/(πB sin(π/2N)) for the order-2N Butterworth band-pass (narrow-band transform of the
+#: prototype's poles, derived): a shorter decay is the filter ringing.
+MIN_FILTER_TIME_CONSTANTS: float = 5.0
+#: Largest non-linearity ξ of a decay fit taken as a decay rate, ‰: ξ = 1000 (1 − r²), so
+#: beyond 100 ‰ the line explains less than 90 % of the curve's variance (ISO 3382-2:2008
+#: Annex B calls 0–5 ‰ typical; :mod:`measure.decay` flags above 10 ‰; the bound for dropping
+#: the figure is common practice).
+MAX_XI_PERMILLE: float = 100.0
+#: Ts may start up to the 1 ms lead of the early sums before the onset, s.
+_TS_LEAD_S = 0.001
+
+
+def _plausibility(band: Band | None, fs: int, values: dict[str, float | None], label: str,
+                  xi_permille: dict[str, float | None] | None = None) -> list[str]:
+    """Set implausible figures in ``values`` to None; return one flag per figure removed.
+
+    The checks guard against a stage misreading an unusual response (they do not replace the
+    ISO checks in :mod:`measure.decay`): |C50|, |C80|, |DRR| at most
+    :data:`PLAUSIBLE_ENERGY_RATIO_DB`; 0 <= D50 <= 1; Ts not before the early sums start;
+    EDT, T20 and T30 at least :data:`MIN_DECAY_TIME_S` and, in a band, at least
+    :data:`MIN_FILTER_TIME_CONSTANTS` time constants of the band filter, and fitted with
+    ξ <= :data:`MAX_XI_PERMILLE` where ``xi_permille`` gives ξ (by the same keys).
+    """
+    flags: list[str] = []
+    t_min = MIN_DECAY_TIME_S
+    why_t = f"below {MIN_DECAY_TIME_S * 1000:.0f} ms, shorter than any room's decay"
+    if band is not None:
+        n = filter_order(band, fs)
+        tau = 1.0 / (math.pi * band.bandwidth_hz * math.sin(math.pi / (2 * n)))
+        if MIN_FILTER_TIME_CONSTANTS * tau > t_min:
+            t_min = MIN_FILTER_TIME_CONSTANTS * tau
+            why_t = (f"below {MIN_FILTER_TIME_CONSTANTS:g} time constants of the band filter "
+                     f"({t_min * 1000:.1f} ms), so the filter's own ringing")
+    names = {"edt_s": "EDT", "t20_s": "T20", "t30_s": "T30", "c50_db": "C50",
+             "c80_db": "C80", "drr_db": "DRR", "d50": "D50", "ts_s": "Ts"}
+    for key, v in values.items():
+        if v is None:
+            continue
+        why = None
+        if key in ("edt_s", "t20_s", "t30_s"):
+            xi = (xi_permille or {}).get(key)
+            if not (v >= t_min):
+                why = f"{v * 1000:.1f} ms is {why_t}"
+            elif xi is not None and not (xi <= MAX_XI_PERMILLE):
+                why = (f"its decay fit has ξ = {xi:.0f} ‰ (over {MAX_XI_PERMILLE:.0f} ‰), "
+                       "the curve is not a decay line")
+        elif key in ("c50_db", "c80_db", "drr_db"):
+            if not (abs(v) <= PLAUSIBLE_ENERGY_RATIO_DB):
+                why = (f"{v:.0f} dB is beyond ±{PLAUSIBLE_ENERGY_RATIO_DB:.0f} dB, "
+                       "a ratio no room gives")
+        elif key == "d50":
+            if not (0.0 <= v <= 1.0):
+                why = f"{v:.3f} is outside 0…1"
+        elif key == "ts_s":
+            if not (v >= -_TS_LEAD_S):
+                why = f"{v * 1000:.1f} ms lies before the sums start"
+        if why is not None:
+            values[key] = None
+            flags.append(f"{label}: {names[key]} set to null: {why}; the response is unusual "
+                         "or was misread (please report it)")
+    return flags
+
+
 def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
                   y_direct: np.ndarray, fs: int, onset: int) -> BandFigures:
     if band is None:
@@ -503,16 +580,24 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
         if spread > 0.025:
             flags.append(f"{label}: the band filter spreads a click over {spread * 1000:.0f} ms, "
                          "comparable to the 50 ms split; C50 and D50 blur here")
+    v: dict[str, float | None] = {
+        "edt_s": decay.edt_s, "t20_s": decay.t20_s, "t30_s": decay.t30_s,
+        "c50_db": energy.c50_db, "c80_db": energy.c80_db, "d50": energy.d50,
+        "ts_s": energy.ts_s, "drr_db": energy.drr_db}
+    # ξ guards T20/T30 only: the EDT range holds the direct sound and the first reflections,
+    # whose bend is the point of EDT (measured: ξ = 138 ‰ for a real office IR at 250 Hz)
+    flags += _plausibility(band, fs, v, label, {"t20_s": decay.xi_t20_permille,
+                                                "t30_s": decay.xi_t30_permille})
     u20 = u30 = None
     if band is not None:
-        if decay.t20_s is not None:
-            u20 = t20_uncertainty_s(decay.t20_s, band.bandwidth_hz)
-        if decay.t30_s is not None:
-            u30 = t30_uncertainty_s(decay.t30_s, band.bandwidth_hz)
+        if v["t20_s"] is not None:
+            u20 = t20_uncertainty_s(v["t20_s"], band.bandwidth_hz)
+        if v["t30_s"] is not None:
+            u30 = t30_uncertainty_s(v["t30_s"], band.bandwidth_hz)
     return BandFigures(
-        band=band, edt_s=decay.edt_s, t20_s=decay.t20_s, t30_s=decay.t30_s,
-        c50_db=energy.c50_db, c80_db=energy.c80_db, d50=energy.d50, ts_s=energy.ts_s,
-        drr_db=energy.drr_db, peak_to_noise_db=decay.peak_to_noise_db, flags=tuple(flags),
+        band=band, edt_s=v["edt_s"], t20_s=v["t20_s"], t30_s=v["t30_s"],
+        c50_db=v["c50_db"], c80_db=v["c80_db"], d50=v["d50"], ts_s=v["ts_s"],
+        drr_db=v["drr_db"], peak_to_noise_db=decay.peak_to_noise_db, flags=tuple(flags),
         t20_uncertainty_s=u20, t30_uncertainty_s=u30, decay=decay, energy=energy,
         filter_order=order)
 
