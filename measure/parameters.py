@@ -95,8 +95,12 @@ CONTRACT_KEYS: tuple[str, ...] = (
     "drr_db", "peak_to_noise_db", "flags")
 
 # Integrated-impulse-response method counted as an ensemble of n = 10 decays, one position
-# (ISO 3382-2:2008 Annex A, from memory; the spread of T20/T30 over 12 noise realisations in
-# tests/test_parameters.py agrees with these formulas within 30 %).
+# (ISO 3382-2:2008 Annex A, from memory; the spread of T20/T30 over 40 noise realisations in
+# tests/test_parameters.py agrees with these formulas within 40 %). Searched 2026-12-02 (docs,
+# pages, code, issues corpora): no public source quoting the formulas was found; one vendor
+# page (placidinstruments.com/blog/reverberation-time-rt60-measurement) confirms only that
+# ISO 3382-2 gives the standard deviation of T20 and T30 from the number of averages and the
+# bandwidth, and calls the annex "B". No source gave an EDT uncertainty, so none is reported.
 _N_DECAYS = 10
 _N_POSITIONS = 1
 
@@ -107,6 +111,13 @@ def t20_uncertainty_s(t20_s: float, bandwidth_hz: float, *, n_decays: int = _N_D
 
     ``σ(T20) = 0.88 T20 √((1 + 1.90/n) / (N B T20))`` with B the filter bandwidth in Hz, n the
     number of decays averaged (10 for the integrated impulse response) and N the positions.
+
+    Notes
+    -----
+    Not confirmed from a public source (searched docs, pages, code and issue corpora; see the
+    note above ``_N_DECAYS``): the coefficients are from memory, their scale is checked by a
+    Monte-Carlo test (tests/test_parameters.py, ±40 %). There is no EDT counterpart: no source
+    found gives one.
     """
     return 0.88 * t20_s * math.sqrt((1.0 + 1.90 / n_decays) / (n_positions * bandwidth_hz * t20_s))
 

@@ -109,7 +109,8 @@ def test_c80_of_decaying_noise_in_octave_bands():
 
 
 def test_uncertainty_formula_matches_monte_carlo():
-    # ISO 3382-2:2008 Annex A (formula from memory): σ(T20) = 0.88 T √(1.19/(B T)),
+    # ISO 3382-2:2008 Annex A (formula from memory; a search of the docs/pages/code/issues
+    # corpora on 2026-12-02 found no public quotation of it): σ(T20) = 0.88 T √(1.19/(B T)),
     # σ(T30) = 0.55 T √(1.152/(B T)) for one integrated IR (n = 10, N = 1). Checked against
     # the spread of 40 independent decaying-noise IRs (T = 1.2 s): the sample standard
     # deviation of 40 values is itself uncertain by about 1/√78 = 11 %, so agreement within
