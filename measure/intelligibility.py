@@ -20,10 +20,32 @@ noise. Real background noise enters only through ``snr_db`` (speech-to-noise rat
 when it is known). The noise factor 1/(1 + 10^(−SNR/10)) is given here from memory; it is the
 standard form.
 
-Not implemented: the level-dependent auditory masking and the absolute reception threshold of
-IEC 60268-16 Annex A (they need absolute speech and noise levels at the listener and their
-application formula could not be verified for this project); the result is therefore the STI
-without masking and threshold corrections, as in the reference check values.
+Auditory masking and reception threshold
+----------------------------------------
+When the absolute speech and noise octave levels at the listener are given (dB SPL), the
+level-dependent auditory masking and the absolute reception threshold of IEC 60268-16:2020
+Annex A are applied (:func:`auditory_factor`):
+
+* ambient noise (A.2.3): ``m' = m · I_s,k / (I_s,k + I_n,k)`` (the same factor as ``snr_db``);
+* masking slope from the speech level of the next-lower octave, L = L_s,k−1 (Table A.2):
+  ``amdB = 0.5 L − 65`` (L < 63), ``1.8 L − 146.9`` (63 ≤ L < 67), ``0.5 L − 59.8``
+  (67 ≤ L < 100), ``−10`` (L ≥ 100); ``amf = 10^(amdB/10)`` (A.4.2);
+* masking intensity ``I_am,k = I_s,k−1 · amf`` (none in the 125 Hz octave) (A.4.2);
+* reception threshold ``I_rt,k = 10^(ART_k/10)``, ART = 46, 27, 12, 6.5, 7.5, 8, 12 dB SPL
+  for 125 Hz … 8 kHz (Table A.3, A.4.3);
+* ``m'' = m' · I_k / (I_k + I_am,k + I_rt,k)`` with ``I_k = I_s,k + I_n,k`` (A.2.4).
+
+Sources: the slope table and the ART values are quoted in the project reference
+(measurement.md §6, [S]); the application (which intensities enter where) was checked against
+a public implementation that cites the 2020 edition's clause and page numbers for each step
+(github.com/rajmic/Speech-Transmission-Index-STI, ``sti_ir.m``, ``adjustAmbientNoise`` and
+``adjustAuditoryMasking``: A.2.3, A.2.4, A.4.2, A.4.3, Tables A.2 and A.3) [S, secondary]. A
+second public implementation (written to IEC 60268-16:2011) uses the same
+``m · I_k/(I_k + I_am + I_rt)`` but takes the masker as speech plus noise of the lower octave;
+here the 2020-referenced form (speech only) is used. With speech well above the noise the two
+differ by less than 10 lg(1 + 10^(−SNR/10)) dB of masker level, i.e. negligibly for
+SNR ≥ 10 dB. Without absolute levels (``snr_db`` only, or nothing) no masking or threshold
+correction is applied, as in the reference check values.
 """
 
 from __future__ import annotations
@@ -48,6 +70,9 @@ __all__ = [
     "mtf_from_ir",
     "sti_from_ir",
     "rating",
+    "ART_DB",
+    "masking_slope_db",
+    "auditory_factor",
 ]
 
 #: Octave bands of the STI (IEC 60268-16:2020): 125 Hz … 8 kHz.
@@ -61,6 +86,9 @@ ALPHA_MALE: tuple[float, ...] = (0.085, 0.127, 0.230, 0.233, 0.309, 0.224, 0.173
 #: Male redundancy factors β_k between adjacent octaves (IEC 60268-16:2020).
 BETA_MALE: tuple[float, ...] = (0.085, 0.078, 0.065, 0.011, 0.047, 0.095)
 #: Rating bands (ISO 9921 wording): lower limits of each qualification.
+#: Absolute speech reception threshold per octave 125 Hz … 8 kHz, dB SPL (IEC 60268-16:2020
+#: Table A.3; measurement.md §6 [S]).
+ART_DB: tuple[float, ...] = (46.0, 27.0, 12.0, 6.5, 7.5, 8.0, 12.0)
 RATING_BANDS: tuple[tuple[float, str], ...] = (
     (0.75, "excellent"), (0.60, "good"), (0.45, "fair"), (0.30, "poor"), (0.0, "bad"))
 
@@ -92,6 +120,9 @@ class StiResult:
     snr_db : ndarray, shape (7,) or None
         Speech-to-noise ratio used per octave, None when no background noise was given.
     flags : tuple of str
+    speech_spl_db, noise_spl_db : ndarray, shape (7,) or None
+        Absolute octave levels at the listener when given; then the auditory masking and
+        reception threshold corrections were applied (``masking_and_threshold``).
     """
 
     sti: float
@@ -101,9 +132,18 @@ class StiResult:
     modulation_frequencies_hz: np.ndarray
     snr_db: np.ndarray | None
     flags: tuple[str, ...] = ()
+    speech_spl_db: np.ndarray | None = None
+    noise_spl_db: np.ndarray | None = None
+
+    @property
+    def masking_and_threshold(self) -> bool:
+        """True when the IEC 60268-16 Annex A masking and threshold corrections were applied
+        (absolute speech and noise levels were given)."""
+        return self.speech_spl_db is not None
 
     def __post_init__(self) -> None:
-        for a in (self.mti, self.mtf, self.modulation_frequencies_hz, self.snr_db):
+        for a in (self.mti, self.mtf, self.modulation_frequencies_hz, self.snr_db,
+                  self.speech_spl_db, self.noise_spl_db):
             if a is not None:
                 a.setflags(write=False)
 
@@ -115,7 +155,11 @@ class StiResult:
             "modulation_frequencies_hz": [float(f) for f in self.modulation_frequencies_hz],
             "mtf": {lab: [float(v) for v in row] for lab, row in zip(STI_BAND_LABELS, self.mtf, strict=True)},
             "snr_db": None if self.snr_db is None else [float(v) for v in self.snr_db],
-            "masking_and_threshold": False,
+            "masking_and_threshold": self.masking_and_threshold,
+            "speech_spl_db": None if self.speech_spl_db is None
+            else [float(v) for v in self.speech_spl_db],
+            "noise_spl_db": None if self.noise_spl_db is None
+            else [float(v) for v in self.noise_spl_db],
             "flags": list(self.flags),
         }
 
@@ -128,6 +172,45 @@ def transmission_index(m: np.ndarray) -> np.ndarray:
         snr = 10.0 * np.log10(m / (1.0 - m))
     snr = np.where(m >= 1.0, 15.0, np.where(m <= 0.0, -15.0, snr))
     return (np.clip(snr, -15.0, 15.0) + 15.0) / 30.0
+
+
+def masking_slope_db(level_db: np.ndarray) -> np.ndarray:
+    """Auditory masking slope amdB from the octave level L of the masking band, dB.
+
+    IEC 60268-16:2020 Table A.2 (measurement.md §6, [S]): 0.5 L − 65 below 63 dB,
+    1.8 L − 146.9 from 63 to 67 dB, 0.5 L − 59.8 from 67 to 100 dB, −10 dB from 100 dB.
+    """
+    L = np.asarray(level_db, dtype=np.float64)
+    return np.where(L < 63.0, 0.5 * L - 65.0,
+                    np.where(L < 67.0, 1.8 * L - 146.9,
+                             np.where(L < 100.0, 0.5 * L - 59.8, -10.0)))
+
+
+def auditory_factor(speech_spl_db: np.ndarray, noise_spl_db: np.ndarray) -> np.ndarray:
+    """Per-octave factor of the MTF for background noise, masking and reception threshold.
+
+    ``Is/(Is + In) · I/(I + I_am + I_rt)`` with I = Is + In, ``I_am,k = I_s,k−1 · amf`` and
+    ``I_rt,k = 10^(ART_k/10)`` (IEC 60268-16:2020 A.2.3, A.2.4, A.4.2, A.4.3; see the module
+    notes for the sources).
+
+    Parameters
+    ----------
+    speech_spl_db, noise_spl_db : array_like, shape (7,)
+        Speech and background-noise octave levels 125 Hz … 8 kHz at the listener, dB SPL.
+
+    Returns
+    -------
+    ndarray, shape (7,)
+    """
+    ls = np.asarray(speech_spl_db, dtype=np.float64)
+    ln = np.asarray(noise_spl_db, dtype=np.float64)
+    i_s = 10.0 ** (ls / 10.0)
+    i_n = 10.0 ** (ln / 10.0)
+    i_k = i_s + i_n
+    i_am = np.zeros(7)
+    i_am[1:] = i_s[:-1] * 10.0 ** (masking_slope_db(ls[:-1]) / 10.0)
+    i_rt = 10.0 ** (np.asarray(ART_DB) / 10.0)
+    return i_s / i_k * (i_k / (i_k + i_am + i_rt))
 
 
 def sti_from_mtf(mtf: np.ndarray, *, snr_db: np.ndarray | None = None,
@@ -254,8 +337,19 @@ def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None) -> tuple[np
     return out, tuple(flags)
 
 
+def _octave_levels(v: float | np.ndarray, name: str) -> np.ndarray:
+    out = np.broadcast_to(np.asarray(v, dtype=float), (7,)).copy() \
+        if np.ndim(v) == 0 or np.shape(v) == (7,) else None
+    if out is None or not np.all(np.isfinite(out)):
+        raise ParameterError(f"{name}={v!r} must be one number or 7 numbers (octaves "
+                             "125 Hz–8 kHz) in dB")
+    return out
+
+
 def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
-                snr_db: float | np.ndarray | None = None) -> StiResult:
+                snr_db: float | np.ndarray | None = None,
+                speech_spl_db: float | np.ndarray | None = None,
+                noise_spl_db: float | np.ndarray | None = None) -> StiResult:
     """Speech transmission index of an impulse response (IEC 60268-16:2020 indirect method).
 
     Parameters
@@ -270,6 +364,11 @@ def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
     snr_db : float or array_like (7,), optional
         Speech-to-background-noise ratio per octave 125 Hz … 8 kHz at the listener, dB, when
         known; applies the factor 1/(1 + 10^(−SNR/10)). None: no background noise.
+    speech_spl_db, noise_spl_db : float or array_like (7,), optional
+        Instead of ``snr_db``: the absolute speech and background-noise octave levels at the
+        listener, dB SPL (one number for all octaves, or seven). Applies the noise factor and
+        the IEC 60268-16:2020 Annex A auditory masking and reception threshold
+        (:func:`auditory_factor`). Give both or neither, and not with ``snr_db``.
 
     Returns
     -------
@@ -280,14 +379,28 @@ def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
     ParameterError
         If ``h`` is not a finite 1-D signal, ``fs`` is too low, or ``snr_db`` is malformed.
     """
-    snr = None
-    if snr_db is not None:
-        snr = np.broadcast_to(np.asarray(snr_db, dtype=float), (7,)).copy() \
-            if np.ndim(snr_db) == 0 or np.shape(snr_db) == (7,) else None
-        if snr is None or not np.all(np.isfinite(snr)):
-            raise ParameterError(f"snr_db={snr_db!r} must be one number or 7 numbers (octaves "
-                                 "125 Hz–8 kHz) in dB")
+    snr = ls = ln = None
+    if (speech_spl_db is None) != (noise_spl_db is None):
+        raise ParameterError("the masking correction needs both speech_spl_db and "
+                             "noise_spl_db; give both, or snr_db")
+    if speech_spl_db is not None:
+        if snr_db is not None:
+            raise ParameterError("give either snr_db or speech_spl_db with noise_spl_db, "
+                                 "not both")
+        ls = _octave_levels(speech_spl_db, "speech_spl_db")
+        ln = _octave_levels(noise_spl_db, "noise_spl_db")
+        snr = ls - ln
+    elif snr_db is not None:
+        snr = _octave_levels(snr_db, "snr_db")
     m, flags = mtf_from_ir(h, fs, onset=onset)
-    if snr is not None:
+    if ls is not None:
+        m = m * auditory_factor(ls, ln)[:, None]
+    elif snr is not None:
         m = m / (1.0 + 10.0 ** (-snr[:, None] / 10.0))
-    return sti_from_mtf(m, snr_db=snr, flags=flags)
+    res = sti_from_mtf(m, snr_db=snr, flags=flags)
+    if ls is None:
+        return res
+    return StiResult(sti=res.sti, rating=res.rating, mti=np.array(res.mti),
+                     mtf=np.array(res.mtf),
+                     modulation_frequencies_hz=np.array(res.modulation_frequencies_hz),
+                     snr_db=snr, flags=res.flags, speech_spl_db=ls, noise_spl_db=ln)

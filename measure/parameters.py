@@ -682,8 +682,10 @@ def analyze_ir(h: np.ndarray, fs: int, *,
     snr_db : float or array_like (7,), optional
         Speech-to-noise ratio per octave 125 Hz–8 kHz for the STI, when known.
     speech_spl_db, noise_spl_db : float or array_like (7,), optional
-        Alternatively, the speech and background-noise band levels at the listener, dB SPL;
-        the STI uses their difference. Give both or neither, and not together with ``snr_db``.
+        Alternatively, the speech and background-noise octave levels at the listener, dB SPL:
+        the STI then applies the noise and the IEC 60268-16:2020 Annex A auditory masking and
+        reception threshold (:func:`measure.intelligibility.auditory_factor`). Give both or
+        neither, and not together with ``snr_db``.
     sti : bool
         Compute the STI (needs fs of about 32 kHz or more for the 8 kHz octave).
 
@@ -725,8 +727,6 @@ def analyze_ir(h: np.ndarray, fs: int, *,
         raise ParameterError("the STI noise correction needs both speech_spl_db and "
                              "noise_spl_db (the speech-to-noise ratio is their difference); "
                              "give both, or snr_db")
-    if speech_spl_db is not None:
-        snr_db = np.asarray(speech_spl_db, dtype=float) - np.asarray(noise_spl_db, dtype=float)
     if h.shape[0] < int(0.1 * fs):
         raise ParameterError(f"the impulse response is only {h.shape[0] / fs * 1000:.0f} ms "
                              "long; give at least 100 ms (better: the whole decay)")
@@ -758,9 +758,10 @@ def analyze_ir(h: np.ndarray, fs: int, *,
         from measure.intelligibility import sti_from_ir
 
         try:
-            sti_res = sti_from_ir(h, fs, onset=onset, snr_db=snr_db)
+            sti_res = sti_from_ir(h, fs, onset=onset, snr_db=snr_db,
+                                  speech_spl_db=speech_spl_db, noise_spl_db=noise_spl_db)
         except ParameterError as err:
-            if snr_db is not None and "snr_db" in str(err):
+            if any(k in str(err) for k in ("snr_db", "speech_spl_db", "noise_spl_db")):
                 raise
             flags.append(f"STI not computed: {err}")
     return RoomFigures(fs=fs, kind=kind, bands=tuple(per_band), broadband=broadband,

@@ -128,6 +128,12 @@ def test_capture_with_sweep_adds_latency_and_drift(tmp_path, capsys, only_analyz
     (["ir.wav", "--sweep", "nosidecar.wav"], "error: .*sweep sidecar .* is missing"),
     (["notaudio.wav"], "error: cannot read .*notaudio.wav as audio"),
     (["short.wav"], "error: the impulse response is only 2 ms long"),
+    (["ir.wav", "--speech-spl", "60"], "error: --speech-spl needs --noise-spl too"),
+    (["ir.wav", "--noise-spl", "40"], "error: --noise-spl needs --speech-spl too"),
+    (["ir.wav", "--speech-spl", "60,61", "--noise-spl", "40"],
+     "error: --speech-spl '60,61' is not one level or seven"),
+    (["ir.wav", "--speech-spl", "60", "--noise-spl", "loud"],
+     "error: --noise-spl 'loud' is not one level or seven"),
 ])
 def test_bad_inputs_give_error_and_exit_2(tmp_path, rng, capsys, only_analyze, monkeypatch,
                                           argv_tail, message):
@@ -163,3 +169,40 @@ def test_cli_default_bands_match_library_default():
     cmd_analyze.add_arguments(p)
     args = p.parse_args(["x.wav"])
     assert args.bands == inspect.signature(analyze_ir).parameters["bands"].default
+
+
+def test_sti_with_speech_and_noise_levels(tmp_path, capsys, only_analyze):
+    # One decaying tone per STI octave, T = 1 s (as tests/test_intelligibility.py). With speech
+    # 70 dB SPL and noise 60 dB SPL in every octave the STI is the IEC 60268-16:2020 value with
+    # the noise (A.2.3) and the Annex A masking and reception threshold (A.2.4, A.4.2, A.4.3):
+    # 0.529 from the analytic MTF 1/√(1 + (2πF T/13.8155)²) times that factor (re-derived in
+    # tests/test_intelligibility.py::_expected_factor); the check value without masking is
+    # 0.530 (measurement.md §6). Tolerance 0.005, the IR-path acceptance tolerance. Seven
+    # values and one value for all octaves must agree exactly.
+    t = np.arange(3 * FS) / FS
+    octaves = 1000.0 * 10 ** (0.3 * np.arange(-3, 4))
+    x = sum(np.cos(2 * np.pi * f * t) for f in octaves) * np.exp(-DECAY_CONSTANT * t / 2.0)
+    path = tmp_path / "ir.wav"
+    write_audio(path, 0.1 * np.concatenate([np.zeros(480), x]), FS)
+    code, out, err = _run(capsys, ["analyze", str(path), "--json", "--speech-spl", "70",
+                                   "--noise-spl", "60"])
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["sti"] == pytest.approx(0.529, abs=0.005)
+    det = doc["details"]["sti"]
+    assert det["masking_and_threshold"] is True
+    assert det["speech_spl_db"] == [70.0] * 7 and det["snr_db"] == [10.0] * 7
+    code, out7, err = _run(capsys, ["analyze", str(path), "--json", "--speech-spl",
+                                    ",".join(["70"] * 7), "--noise-spl", "60,60,60,60,60,60,60"])
+    assert code == 0, err
+    assert json.loads(out7)["sti"] == doc["sti"]
+    # text report says which corrections were applied
+    code, text, err = _run(capsys, ["analyze", str(path), "--speech-spl", "70",
+                                    "--noise-spl", "60"])
+    assert code == 0, err
+    assert "auditory masking and reception threshold" in text
+    # without levels: no background noise, the noise-free value for T = 1 s (0.589,
+    # measurement.md §6) within the same tolerance
+    code, out0, err = _run(capsys, ["analyze", str(path), "--json"])
+    assert json.loads(out0)["sti"] == pytest.approx(0.589, abs=0.005)
+    assert json.loads(out0)["details"]["sti"]["masking_and_threshold"] is False

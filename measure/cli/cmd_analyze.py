@@ -14,7 +14,14 @@ impulse response is then recovered first: latency, clock drift and distortion ar
 Per octave (or third-octave) band: EDT, T20, T30 with their standard uncertainty
 (ISO 3382-2 Annex A), C50, C80, D50, centre time Ts, direct-to-reverberant ratio and the
 peak-to-noise ratio; then the single numbers over the 500 Hz and 1 kHz octaves
-(ISO 3382-1) and the speech transmission index (IEC 60268-16, no background noise).
+(ISO 3382-1) and the speech transmission index (IEC 60268-16:2020, indirect method).
+
+The STI assumes no background noise unless --speech-spl and --noise-spl give the speech and
+background-noise octave levels at the listener (dB SPL, 125 Hz-8 kHz: seven comma-separated
+values or one for all). Then the noise lowers the modulation (factor Is/(Is+In)) and the
+IEC 60268-16:2020 Annex A auditory masking (slope from the speech level of the octave below)
+and absolute reception threshold (46, 27, 12, 6.5, 7.5, 8, 12 dB SPL) are applied, so the
+levels must be absolute: e.g. --speech-spl 60 --noise-spl 45.
 A figure that cannot be measured honestly is shown as '—' (null in JSON) and a note under
 the table says why.
 
@@ -35,6 +42,15 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                         "cannot carry them)")
     p.add_argument("--channel", type=int, default=1, metavar="N",
                    help="channel of INPUT to analyse, 1-based (default 1)")
+    p.add_argument("--speech-spl", metavar="DB[,DB...]", default=None,
+                   help="speech octave levels at the listener, dB SPL, for the STI: one value "
+                        "for all seven octaves 125 Hz-8 kHz or seven comma-separated values; "
+                        "needs --noise-spl")
+    p.add_argument("--noise-spl", metavar="DB[,DB...]", default=None,
+                   help="background-noise octave levels at the listener, dB SPL (one value or "
+                        "seven, as --speech-spl); with both, the STI includes the noise and "
+                        "the IEC 60268-16:2020 Annex A auditory masking and reception "
+                        "threshold")
     p.add_argument("--json", action="store_true",
                    help="print the figures as one JSON object on stdout")
     p.add_argument("--plot", metavar="FILE.png", default=None,
@@ -49,6 +65,13 @@ def run(args: argparse.Namespace) -> int:
     from measure.errors import ParameterError
     from measure.parameters import analyze_ir
 
+    speech_spl = _octave_levels(args.speech_spl, "--speech-spl")
+    noise_spl = _octave_levels(args.noise_spl, "--noise-spl")
+    if (speech_spl is None) != (noise_spl is None):
+        given, missing = (("--speech-spl", "--noise-spl") if noise_spl is None
+                          else ("--noise-spl", "--speech-spl"))
+        raise ParameterError(f"{given} needs {missing} too: the STI's noise and masking "
+                             "corrections use both levels; give both, or neither")
     if args.plot is not None:  # before any work, so nothing is written when it cannot be drawn
         from measure.report import check_png_path, require_matplotlib
 
@@ -71,7 +94,8 @@ def run(args: argparse.Namespace) -> int:
         h = capture.h[0]
     else:
         h = audio.x[ch]
-    figs = analyze_ir(h, audio.fs, bands=args.bands)
+    figs = analyze_ir(h, audio.fs, bands=args.bands, speech_spl_db=speech_spl,
+                      noise_spl_db=noise_spl)
     doc = figs.to_dict()
     if capture is not None:
         doc["latency_s"] = capture.latency_s[0]
@@ -93,6 +117,26 @@ def run(args: argparse.Namespace) -> int:
                             n_channels=audio.n_channels, n_samples=h.shape[-1],
                             sweep=args.sweep))
     return 0
+
+
+def _octave_levels(text: str | None, option: str) -> float | list[float] | None:
+    """``"60"`` or ``"62,61,58,55,51,47,43"`` -> one level or 7 finite levels in dB SPL."""
+    import math
+
+    from measure.errors import ParameterError
+
+    if text is None:
+        return None
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        vals = [float(p) for p in parts]
+    except ValueError:
+        vals = []
+    if len(vals) not in (1, 7) or not all(math.isfinite(v) for v in vals):
+        raise ParameterError(
+            f"{option} {text!r} is not one level or seven comma-separated levels in dB SPL "
+            "(octaves 125 Hz-8 kHz), e.g. 60 or 62,61,58,55,51,47,43")
+    return vals[0] if len(vals) == 1 else vals
 
 
 def _zero_based(channel: int, n_channels: int) -> int:
@@ -198,8 +242,13 @@ def format_report(doc: dict[str, Any], *, source: str, channel: int, n_channels:
         lines.append("STI: —")
     else:
         mti = "  ".join(f"{k} {v:.2f}" for k, v in sti["mti"].items())
-        noise = ("no background noise given" if sti.get("snr_db") is None
-                 else "with the given speech-to-noise ratio")
+        if sti.get("masking_and_threshold"):
+            noise = ("with the given speech and noise levels, auditory masking and reception "
+                     "threshold")
+        elif sti.get("snr_db") is None:
+            noise = "no background noise given"
+        else:
+            noise = "with the given speech-to-noise ratio"
         lines.append(f"STI {doc['sti']:.2f} ({sti['rating']}; IEC 60268-16:2020 indirect "
                      f"method, male weights, {noise})")
         lines.append(f"  MTI per octave: {mti}")
