@@ -23,6 +23,15 @@ T = 1.2 s — derived from dC80/dt). The late sums end at the band's Lundeby cro
 noise power is subtracted and the fitted exponential tail is added analytically, exactly as for
 the decay curve, so background noise in the IR does not lower C80 or raise Ts.
 
+Plausibility guard
+------------------
+After the ISO checks, a figure outside a physically plausible range is set to null with a flag
+(:func:`_plausibility`): |C50|, |C80|, |DRR| above 60 dB, D50 outside 0…1, Ts before the sums
+start, EDT/T20/T30 below 20 ms or below five time constants of the band filter, and T20/T30
+whose fit has ξ above 100 ‰. It guards against a stage misreading an unusual response (as the
+noise-floor search once misread the silent gaps of a sparse comb response, giving C80 of
+2400 dB); it is not a substitute for finding such a cause.
+
 Direct-to-reverberant ratio
 ---------------------------
 The direct sound is the broadband IR up to 2.5 ms after the direct-sound peak (common practice;
