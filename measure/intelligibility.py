@@ -37,9 +37,8 @@ Annex A are applied (:func:`auditory_factor`):
 
 Sources: the slope table and the ART values are quoted in the project reference
 (measurement.md §6, [S]); the application (which intensities enter where) was checked against
-a public implementation that cites the 2020 edition's clause and page numbers for each step
-(github.com/rajmic/Speech-Transmission-Index-STI, ``sti_ir.m``, ``adjustAmbientNoise`` and
-``adjustAuditoryMasking``: A.2.3, A.2.4, A.4.2, A.4.3, Tables A.2 and A.3) [S, secondary]. A
+public open-source code that quotes the 2020 edition's clause and page numbers for each step
+(A.2.3, A.2.4, A.4.2, A.4.3, Tables A.2 and A.3) [S, secondary: not the standard's own text]. A
 second public implementation (written to IEC 60268-16:2011) uses the same
 ``m · I_k/(I_k + I_am + I_rt)`` but takes the masker as speech plus noise of the lower octave;
 here the 2020-referenced form (speech only) is used. With speech well above the noise the two

@@ -156,8 +156,8 @@ def test_bad_inputs():
 # Sources: slope table (Table A.2) and ART (Table A.3) from measurement.md §6 [S]; the
 # application (A.2.3 noise m·Is/(Is+In); A.4.2 I_am,k = I_s,k−1·10^(amdB(L_s,k−1)/10); A.4.3
 # I_rt,k = 10^(ART_k/10); A.2.4 m·I_k/(I_k + I_am,k + I_rt,k), I_k = I_s,k + I_n,k) as cited
-# with clause numbers by the public implementation github.com/rajmic/Speech-Transmission-Index-STI
-# (sti_ir.m) [S, secondary]. The expectations below re-derive the factor here, independently
+# with clause numbers by public open-source code implementing the 2020 edition [S, secondary:
+# not the standard's own text]. The expectations below re-derive the factor here, independently
 # of measure.intelligibility.
 
 
