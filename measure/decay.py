@@ -43,6 +43,7 @@ __all__ = [
     "onset_index",
     "schroeder",
     "lundeby",
+    "fit_range",
     "fit_decay",
     "analyze_decay",
 ]
@@ -415,6 +416,33 @@ def _tail_sum(a_db: float, b_db_per_s: float, n1: int, fs: int) -> float:
     return float(10.0 ** ((a_db + b_db_per_s * n1 / fs) / 10.0) / (1.0 - r))
 
 
+def fit_range(curve_db: np.ndarray, hi_db: float, lo_db: float, *,
+              end_db: float | None = None) -> tuple[int, int] | None:
+    """Sample range [i0, i1) of a Schroeder curve that a decay fit between two levels uses.
+
+    From the first sample at or below ``hi_db`` to the last before the curve falls below
+    ``lo_db``; a truncated curve whose compensated end level ``end_db`` is at or below
+    ``lo_db`` counts as complete to its last sample. None when the range is not reached or
+    holds fewer than 3 samples. See :func:`fit_decay`.
+    """
+    L = np.asarray(curve_db)
+    if L.size == 0:
+        return None
+    i0 = int(np.argmax(L <= hi_db))
+    if not L[i0] <= hi_db:
+        return None
+    below = L[i0:] < lo_db
+    if below.any():
+        i1 = i0 + int(np.argmax(below))
+    elif end_db is not None and end_db <= lo_db + 1e-9:
+        i1 = L.shape[0]
+    else:
+        return None
+    if i1 - i0 < 3:
+        return None
+    return i0, i1
+
+
 def fit_decay(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
               end_db: float | None = None) -> tuple[float, float] | None:
     """Least-squares decay fit of a Schroeder curve between two levels.
@@ -441,18 +469,10 @@ def fit_decay(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
         ``lo_db`` or fewer than 3 samples fall in the range.
     """
     L = np.asarray(curve_db)
-    i0 = int(np.argmax(L <= hi_db))
-    if not L[i0] <= hi_db:
+    span = fit_range(L, hi_db, lo_db, end_db=end_db)
+    if span is None:
         return None
-    below = L[i0:] < lo_db
-    if below.any():
-        i1 = i0 + int(np.argmax(below))
-    elif end_db is not None and end_db <= lo_db + 1e-9:
-        i1 = L.shape[0]
-    else:
-        return None
-    if i1 - i0 < 3:
-        return None
+    i0, i1 = span
     b, r2 = _uniform_slope(L[i0:i1])
     b *= fs  # dB per sample -> dB per second
     if not (b < 0):

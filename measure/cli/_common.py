@@ -31,3 +31,14 @@ def info(message: str) -> None:
 def warn(message: str) -> None:
     """A warning the user should act on, on stderr."""
     print(f"warning: {message}", file=sys.stderr)
+
+
+def channel_index(channel: int, n_channels: int, *, option: str, source: str) -> int:
+    """0-based index of a 1-based channel number given on the command line, or an error."""
+    from measure.errors import ParameterError
+
+    if not 1 <= channel <= n_channels:
+        raise ParameterError(
+            f"{option} {channel} does not exist: {source} has {n_channels} channel(s); choose "
+            f"one of 1..{n_channels}")
+    return channel - 1

@@ -61,7 +61,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
-    from measure.cli._common import info, print_json
+    from measure.cli._common import channel_index, info, print_json
     from measure.errors import ParameterError
     from measure.parameters import analyze_ir
 
@@ -78,7 +78,7 @@ def run(args: argparse.Namespace) -> int:
         check_png_path(args.plot, option="--plot")
         require_matplotlib()
     audio = audio_io.read_audio(args.input)
-    ch = _zero_based(args.channel, audio.n_channels)
+    ch = channel_index(args.channel, audio.n_channels, option="--channel", source="INPUT")
     capture = None
     if args.sweep is not None:
         from measure.deconvolve import recover_ir
@@ -137,16 +137,6 @@ def _octave_levels(text: str | None, option: str) -> float | list[float] | None:
             f"{option} {text!r} is not one level or seven comma-separated levels in dB SPL "
             "(octaves 125 Hz-8 kHz), e.g. 60 or 62,61,58,55,51,47,43")
     return vals[0] if len(vals) == 1 else vals
-
-
-def _zero_based(channel: int, n_channels: int) -> int:
-    from measure.errors import ParameterError
-
-    if not 1 <= channel <= n_channels:
-        raise ParameterError(
-            f"--channel {channel} does not exist: INPUT has {n_channels} channel(s); choose one "
-            f"of 1..{n_channels}")
-    return channel - 1
 
 
 # ---------------------------------------------------------------------------------------------

@@ -37,7 +37,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
-    from measure.cli._common import info, print_json, warn
+    from measure.cli._common import channel_index, info, print_json, warn
     from measure.deconvolve import recover_ir
     from measure.errors import ParameterError
 
@@ -49,9 +49,12 @@ def run(args: argparse.Namespace) -> int:
         raise ParameterError(
             f"the capture is at {cap.fs} Hz but the sweep at {sweep.fs} Hz; record at the "
             "sweep's rate, or make a sweep at the capture's rate")
-    channels = None if not args.channel else [_zero_based(c, cap.n_channels) for c in args.channel]
+    channels = None if not args.channel else [
+        channel_index(c, cap.n_channels, option="--channel", source="the capture")
+        for c in args.channel]
     ref = (None if args.loopback_channel is None
-           else _zero_based(args.loopback_channel, cap.n_channels))
+           else channel_index(args.loopback_channel, cap.n_channels,
+                              option="--loopback-channel", source="the capture"))
     ir = recover_ir(cap.x, sweep, channels=channels, reference_channel=ref,
                     n_harmonics=args.harmonics, pre_s=args.pre)
     for w in ir.warnings:
@@ -72,16 +75,6 @@ def run(args: argparse.Namespace) -> int:
         print(format_ir_summary(ir))
     info(f"wrote {wav} and {side}")
     return 0
-
-
-def _zero_based(channel: int, n_channels: int) -> int:
-    from measure.errors import ParameterError
-
-    if not 1 <= channel <= n_channels:
-        raise ParameterError(
-            f"channel {channel} does not exist: the capture has {n_channels} channel(s); "
-            f"choose one of 1..{n_channels}")
-    return channel - 1
 
 
 def format_ir_summary(ir) -> str:

@@ -217,21 +217,13 @@ def fit_line(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
         The line ``L(t) = a + b t`` over ``t0 <= t <= t1`` (s from the curve's first sample);
         ``-60/b`` is the decay time. None when the range is not reached.
     """
+    from measure.decay import fit_range
+
     L = np.asarray(curve_db, dtype=np.float64)
-    if L.size < 3:
+    span = fit_range(L, hi_db, lo_db, end_db=end_db)
+    if span is None:
         return None
-    i0 = int(np.argmax(L <= hi_db))
-    if not L[i0] <= hi_db:
-        return None
-    below = L[i0:] < lo_db
-    if below.any():
-        i1 = i0 + int(np.argmax(below))
-    elif end_db is not None and end_db <= lo_db + 1e-9:
-        i1 = L.shape[0]
-    else:
-        return None
-    if i1 - i0 < 3:
-        return None
+    i0, i1 = span
     t = np.arange(i0, i1, dtype=np.float64) / fs
     y = L[i0:i1]
     tm, ym = float(t.mean()), float(y.mean())
