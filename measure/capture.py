@@ -534,6 +534,7 @@ def level_program(spec: Any) -> tuple[np.ndarray, Any, tuple[int, ...]]:
 
 
 #: Nominal octave centres (IEC 61260-1, base 10 exact midband 1000·10^(3k/10) Hz, nominal names).
+#: Nominal octave centres the level check and the take summary consider (IEC 61260-1).
 OCTAVE_CENTRES_HZ = (31.5, 63.0, 125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0, 16000.0)
 
 
@@ -597,13 +598,14 @@ def _deconvolve(seg: np.ndarray, short: Any) -> np.ndarray:
 
 
 def _octave_power_response(fs: int, centre_hz: float, f_hz: np.ndarray) -> np.ndarray:
-    """|B(f)|² of an octave band: order-3 Butterworth, edges fc·2^(±1/2) (IEC 61260-1 base-2
-    band edges; a third-order Butterworth is common practice for a quick band level)."""
-    from scipy.signal import butter, sosfreqz
+    """|B(f)|² of the octave band with nominal centre ``centre_hz``: the same IEC 61260-1
+    class 1 filter the room figures use (:func:`measure.bands.band_filter_sos`)."""
+    from scipy.signal import sosfreqz
 
-    sos = butter(3, [centre_hz / math.sqrt(2.0), centre_hz * math.sqrt(2.0)], btype="bandpass",
-                 fs=fs, output="sos")
-    _, b = sosfreqz(sos, worN=f_hz, fs=fs)
+    from measure.bands import band_centers, band_filter_sos
+
+    band = band_centers("octave", centre_hz, centre_hz)[0]
+    _, b = sosfreqz(band_filter_sos(band, fs), worN=f_hz, fs=fs)
     return np.abs(b) ** 2
 
 
