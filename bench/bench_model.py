@@ -152,7 +152,8 @@ def main() -> int:
     model = res.model
     print(f"fit_model, 2 s IR at {FS} Hz: {t_fit:.2f} s (budget 2 s: "
           f"{'OK' if t_fit < 2.0 else 'OVER'}); of which ~{(1 + N_CALIBRATION_PASSES) * t_an:.2f} s "
-          f"in {1 + N_CALIBRATION_PASSES} ISO 3382 analyses at {t_an:.2f} s each")
+          f"in {1 + N_CALIBRATION_PASSES} (+1 when bands are taken from different passes) "
+          f"ISO 3382 analyses at {t_an:.2f} s each")
     seconds = 2.0
     print(f"render_model, {seconds:g} s of the fitted model (required >= 20x real time):")
     for rate in RENDER_RATES:

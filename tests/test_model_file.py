@@ -36,16 +36,21 @@ def _model() -> RoomModel:
                      mixing_time_s=0.03, source={"file": "hand-made"})
 
 
-def test_round_trip_renders_identically():
+@pytest.mark.parametrize("diffuse", [False, True])
+def test_round_trip_renders_identically(diffuse):
     # to_dict → JSON text → from_dict must rebuild the same model: the renderings agree to
-    # float64 round-off (JSON keeps 17 significant digits, so nothing is lost).
+    # float64 round-off (JSON keeps 17 significant digits, so nothing is lost). With an early
+    # diffuse part too (network from 30 ms, as from a mixing time).
     m = _model()
+    if diffuse:
+        m = m.replace(late=m.late.replace(start_s=0.03, fade_s=0.005, diffuse_from_s=0.0025))
     text = json.dumps(m.to_dict())
     back = model_from_dict(json.loads(text))
     a = render_model(m, FS, 0.5)
     b = render_model(back, FS, 0.5)
     assert np.max(np.abs(a - b)) <= 1e-12 * np.max(np.abs(a))
     d = back.to_dict()
+    assert d["late"]["diffuse_from_s"] == (0.0025 if diffuse else None)
     assert d["format"] == "measure.room-model" and d["version"] == 1
     assert d["echoes"][1] == {"delay_s": 0.0072, "gain": -0.25}
 

@@ -23,6 +23,7 @@ from measure.model.late import (
     octave_t30_s,
     orthogonal_matrix,
     render_late,
+    render_late_bands,
     run_network,
     stored_energy,
     white_levels_db,
@@ -168,3 +169,42 @@ def test_absorbing_network_raw_octave_t30_within_5_percent():
         if b.center_hz < 100:
             continue
         assert got is not None and abs(got / want - 1.0) < 0.05, (b.label, got, want)
+
+
+def _band_power_db(y: np.ndarray, t_s: np.ndarray, t60_s: float, lo_s: float, hi_s: float
+                   ) -> float:
+    """Mean power over [lo_s, hi_s) with the band's exponential decay taken out, dB."""
+    k = (t_s >= lo_s) & (t_s < hi_s)
+    return 10 * math.log10(np.mean(y[k] ** 2 * np.exp(6 * math.log(10) * t_s[k] / t60_s)))
+
+
+def test_early_diffuse_part_continues_the_network_level():
+    # diffuse_from_s: band-shaped noise from 2.5 ms carries the diffuse energy up to the
+    # network's start and cross-fades into it. Its power per band is set to the network's
+    # power at its start continued back along the band's decay (derived from level_db and
+    # T60 in late._early_diffuse), so, decay taken out, the power before and after the
+    # cross-fade must agree. Tolerance 1 dB: each side is an estimate over ~0.2-0.4 s of an
+    # octave of noise, whose normalised random error is 1/sqrt(B·T) (Bendat & Piersol, Random
+    # Data, power estimates): ≤ 0.1 at 1 kHz and 4 kHz, i.e. ≤ 0.4 dB, plus the network's
+    # deviation from a pure exponential.
+    fc = (250.0, 1000.0, 4000.0)
+    t60 = (1.0, 0.9, 0.8)
+    start, fade = 0.2, 0.005
+    late = LateReverb(fc, t60, white_levels_db(fc, FS, -10.0), start, fade,
+                      nominal_delays_s(max(t60)), diffuse_from_s=0.0025)
+    y = render_late_bands(late, FS, int(0.7 * FS))
+    t = np.arange(y.shape[1]) / FS
+    for b in (1, 2):
+        before = _band_power_db(y[b], t, t60[b], 0.01, start - 0.005)
+        after = _band_power_db(y[b], t, t60[b], start + fade + 0.005, 0.6)
+        assert abs(before - after) < 1.0, (fc[b], before, after)
+    # nothing before the early diffuse part starts but the masks' FFT round-off
+    assert np.max(np.abs(y[:, : int(0.001 * FS)])) < 1e-9 * np.max(np.abs(y))
+    # and it is deterministic (fixed seed): a model renders the same every time
+    assert np.array_equal(y, render_late_bands(late, FS, int(0.7 * FS)))
+
+
+def test_early_diffuse_start_is_checked():
+    with pytest.raises(ParameterError, match="diffuse_from_s"):
+        LateReverb((1000.0,), (0.5,), (-10.0,), 0.02, 0.005, nominal_delays_s(0.5),
+                   diffuse_from_s=0.03)

@@ -9,8 +9,8 @@ HELP = "fit a compact room model (coloration, echoes, late decay per band) to an
 DESCRIPTION = """\
 Fit the compact room model to an impulse response and write it as a versioned JSON file:
 a low-order coloration filter for the direct sound, the discrete early echoes (delays and
-gains), and a late reverberation (a feedback delay network) whose decay and level follow the
-measurement octave by octave. The file also holds the room as I3DL2 listener reverb
+gains), and a late reverberation (a feedback delay network from the mixing time on, an early
+diffuse part before it) whose decay and level follow the measurement octave by octave. The file also holds the room as I3DL2 listener reverb
 parameters. Render it with `measure render`, hear it with `measure auralize`.
 
 The fit report compares, per octave band, EDT, T20, T30, C50, C80, D50 and Ts of the
@@ -31,10 +31,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--echoes", type=int, default=None, metavar="K",
                    help="number of discrete echoes (default: those that stand out of the diffuse "
                         "background)")
-    p.add_argument("--late-from", choices=("direct", "mixing"), default="direct",
-                   help="start the late reverberation 2.5 ms after the direct sound, its envelope "
-                        "carrying the diffuse energy before the mixing time (default), or at the "
-                        "mixing time")
+    p.add_argument("--late-from", choices=("mixing", "direct"), default="mixing",
+                   help="start the delay network at the mixing time, an early diffuse part "
+                        "carrying the diffuse energy before it (default), or 2.5 ms after the "
+                        "direct sound")
     p.add_argument("--channel", type=int, default=1, metavar="N",
                    help="channel of IR.wav to fit, 1-based (default 1)")
     p.add_argument("--json", action="store_true",

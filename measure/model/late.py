@@ -122,6 +122,13 @@ CALIBRATION_RANGE = 1.6
 #: Length of the renderings :func:`calibrate_decay` analyses, in units of the longest T60:
 #: 60 dB of decay, enough for T30's 45 dB of range (ISO 3382-1 5.3.3).
 CALIBRATION_LENGTH = 1.0
+#: Early diffuse part (:func:`_early_diffuse`): seed of its noise, noise kept on both sides of
+#: the cut-out segment, s, and its fade-in, s.
+DIFFUSE_SEED = 20060
+DIFFUSE_PAD_S = 0.05
+DIFFUSE_FADE_IN_S = 0.001
+#: Energy decay constant × T60 for a 60 dB fall: 6·ln 10.
+DECAY_60DB_E = 6.0 * math.log(10.0)
 #: Largest block of :func:`run_network`, samples (see its notes).
 MAX_BLOCK = 1024
 #: Length of the power ramp of the envelope correction at each segment edge, s.
@@ -467,6 +474,11 @@ class LateReverb:
         Per band, one gain per segment (see :func:`envelope_gain`): the early energy of a
         measured band rarely follows one exponential, and this is what makes the model's early
         decay and clarity follow the measurement's.
+    diffuse_from_s : float or None, s
+        Start (re the direct sound) of the early diffuse part: band-shaped noise that carries
+        the diffuse energy between the direct sound and the network's start ``start_s`` and
+        cross-fades (power-complementary, over ``fade_s``) into the network; see
+        :func:`render_late_bands`. None: the network alone (its fade-in a half-Hann).
     """
 
     band_centers_hz: tuple[float, ...]
@@ -477,6 +489,7 @@ class LateReverb:
     delays_s: tuple[float, ...]
     envelope_edges_s: tuple[tuple[float, ...], ...] = ()
     envelope_db: tuple[tuple[float, ...], ...] = ()
+    diffuse_from_s: float | None = None
 
     def __post_init__(self) -> None:
         n = len(self.band_centers_hz)
@@ -495,6 +508,9 @@ class LateReverb:
         if not (self.start_s >= 0) or not (self.fade_s >= 0):
             raise ParameterError(f"start_s={self.start_s!r} and fade_s={self.fade_s!r} must be "
                                  ">= 0")
+        if self.diffuse_from_s is not None and not (0 <= self.diffuse_from_s < self.start_s):
+            raise ParameterError(f"diffuse_from_s={self.diffuse_from_s!r} must lie in 0 … "
+                                 f"start_s={self.start_s!r}, or be None (no early diffuse part)")
         n_l = len(self.delays_s)
         if n_l < 2 or n_l & (n_l - 1):
             raise ParameterError(f"{n_l} delay lines given; the network needs a power of two >= 2")
@@ -533,6 +549,7 @@ class LateReverb:
             "delays_s": [float(v) for v in self.delays_s],
             "envelope_edges_s": [[float(v) for v in row] for row in self.envelope_edges_s],
             "envelope_db": [[float(v) for v in row] for row in self.envelope_db],
+            "diffuse_from_s": None if self.diffuse_from_s is None else float(self.diffuse_from_s),
         }
 
 
@@ -595,9 +612,12 @@ def render_late_bands(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
     n_body = n_samples - start
     y, _ = run_network(net, n_pre + n_body, x=np.ones(1), dtype=np.float32)
     seg = y[:, n_pre:]
+    diffuse = late.diffuse_from_s is not None
     if fade > 0:
         k = min(fade, n_body)
-        seg[:, :k] *= np.sin(0.5 * np.pi * (np.arange(k) + 0.5) / fade) ** 2
+        ramp = np.sin(0.5 * np.pi * (np.arange(k) + 0.5) / fade)
+        # with an early diffuse part, sin/cos: the powers of the two add to one
+        seg[:, :k] *= ramp if diffuse else ramp ** 2
     n_fft = next_fast_len(lead + n_body + lead, real=True)
     buf = np.zeros((fc.size, n_fft))
     buf[:, lead: lead + n_body] = seg
@@ -616,12 +636,70 @@ def render_late_bands(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
     src0, dst0 = max(0, -lo), max(0, lo)
     n_copy = min(n_samples - dst0, n_fft - src0)
     out[:, dst0: dst0 + n_copy] = body[:, src0: src0 + n_copy]
+    if diffuse:
+        out += _early_diffuse(late, fs, n_samples, out, keep)
     if late.envelope_edges_s:
         t = np.arange(n_samples) / fs
         rows = [i for i in range(keep.size) if keep[i]]
         for j, i in enumerate(rows):
             if len(late.envelope_edges_s[i]):
                 out[j] *= envelope_gain(t, late.envelope_edges_s[i], late.envelope_db[i])
+    return out
+
+
+def _early_diffuse(late: LateReverb, fs: int, n_samples: int, net_out: np.ndarray,
+                   keep: np.ndarray) -> np.ndarray:
+    """The early diffuse part, band by band: noise from ``diffuse_from_s`` into the network.
+
+    Gaussian noise from a fixed seed (so a model renders the same every time), split into the
+    bands with the masks of :func:`band_masks` and given, per band, the network output's power
+    at its start continued backwards along the band's decay ``exp(−13.8·t/T60)``; a 1 ms
+    half-Hann fade-in at ``diffuse_from_s`` and a cosine fade-out over the network's sine
+    fade-in (their powers add to one). The envelope correction then shapes it like the rest.
+    """
+    from scipy.fft import irfft, next_fast_len, rfft
+
+    d0 = int(round(late.diffuse_from_s * fs))
+    start = int(round(late.start_s * fs))
+    fade = int(round(late.fade_s * fs))
+    stop = min(n_samples, start + fade)
+    out = np.zeros_like(net_out)
+    if d0 >= stop:
+        return out
+    n_seg = stop - d0
+    pad = int(round(DIFFUSE_PAD_S * fs))  # noise on both sides: the cut-out stays stationary
+    rng = np.random.default_rng(DIFFUSE_SEED)
+    n_fft = next_fast_len(n_seg + 4 * pad, real=True)
+    buf = np.zeros(n_fft)
+    buf[: n_seg + 2 * pad] = rng.standard_normal(n_seg + 2 * pad)
+    spec = rfft(buf)
+    fc = np.asarray(late.band_centers_hz)[keep]
+    masks = band_masks(fc, np.arange(spec.size) * fs / n_fft)
+    noise = irfft(spec[np.newaxis, :] * masks, n=n_fft, axis=1)[:, pad: pad + n_seg]
+    # expected power of unit white noise through a zero-phase mask: the mean of |W|² over the
+    # whole spectrum (interior bins of the half spectrum count twice)
+    wts = np.full(spec.size, 2.0)
+    wts[0] = 1.0
+    if n_fft % 2 == 0:
+        wts[-1] = 1.0
+    p_noise = (masks ** 2 @ wts) / n_fft
+    t60 = np.asarray(late.t60_s)[keep][:, np.newaxis]
+    rate = DECAY_60DB_E / t60  # energy decay per second
+    # the network's power at its start: its band energy level_db spread over an exponential
+    # decay exp(−rate·t) from start_s to the end of the rendering (less half the fade)
+    span = max(n_samples - start, 1) / fs
+    e_band = 10.0 ** (np.asarray(late.level_db)[keep] / 10.0)
+    n_eff = fs * (1.0 - np.exp(-rate[:, 0] * span)) / rate[:, 0] - 0.5 * fade  # samples
+    p_net = e_band / np.maximum(n_eff, 1.0)
+    t = (np.arange(d0, stop) - start) / fs
+    amp = np.sqrt(p_net / np.maximum(p_noise, 1e-300))[:, np.newaxis] * np.exp(-0.5 * rate * t)
+    win = np.ones(n_seg)
+    k_in = min(n_seg, max(1, int(round(DIFFUSE_FADE_IN_S * fs))))
+    win[:k_in] = np.sin(0.5 * np.pi * (np.arange(k_in) + 0.5) / k_in) ** 2
+    if fade > 0:
+        k = np.arange(max(start, d0), stop)
+        win[k - d0] *= np.cos(0.5 * np.pi * (k - start + 0.5) / fade)
+    out[:, d0:stop] = noise * amp * win
     return out
 
 

@@ -35,7 +35,9 @@ File layout (format ``measure.room-model``, version 1)
     s; made distinct primes at the rendering rate); ``envelope_edges_s`` and ``envelope_db``
     (per band, segment edges re the direct sound and one gain per segment: the correction that
     makes the early energy follow the measurement; see
-    :func:`measure.model.late.envelope_gain`).
+    :func:`measure.model.late.envelope_gain`); ``diffuse_from_s`` (start of the early diffuse
+    part, band-shaped noise that carries the diffuse energy up to the network's start and
+    cross-fades into it, s re the direct sound; null or absent: none).
 ``mixing_time_s`` : float or null
     Mixing time of the measured response after the direct sound (normalised echo density),
     for information.
@@ -201,7 +203,9 @@ def model_from_dict(d: Any) -> RoomModel:
             fade_s=_num(late_d, "fade_s", "late"),
             delays_s=_nums(late_d, "delays_s", "late"),
             envelope_edges_s=_rows(late_d, "envelope_edges_s"),
-            envelope_db=_rows(late_d, "envelope_db"))
+            envelope_db=_rows(late_d, "envelope_db"),
+            diffuse_from_s=(None if late_d.get("diffuse_from_s") is None
+                            else _num(late_d, "diffuse_from_s", "late")))
         ech = []
         for i, e in enumerate(echoes):
             if not isinstance(e, dict):
