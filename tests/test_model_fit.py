@@ -133,12 +133,18 @@ def test_model_demo_gives_a_matched_auralized_pair():
 
 
 def test_late_part_from_the_mixing_time():
-    # late_from="mixing": the late part fades in over 5 ms and is complete at the mixing time
-    # (Abel & Huang 2006 echo density, measure.model.mixing), stored re the direct sound.
+    # The issue: the late part (the network) starts at the mixing time (Abel & Huang 2006 echo
+    # density, measure.model.mixing). By default (late_from="mixing") it fades in over 5 ms and
+    # is complete at the mixing time, stored re the direct sound; the early diffuse part runs
+    # from the end of the direct-sound window (2.5 ms, common practice) up to it.
     room = DEMO_ROOMS[1]
-    res = fit_model(room_ir(room, FS), FS, late_from="mixing")
+    res = fit_model(room_ir(room, FS), FS)
     m = res.model
     assert m.mixing_time_s is not None
     assert m.late.start_s + m.late.fade_s == pytest.approx(m.mixing_time_s)
+    assert m.late.diffuse_from_s == pytest.approx(0.0025)
+    # late_from="direct": the network itself from 2.5 ms, no early diffuse part
+    d = fit_model(room_ir(room, FS), FS, late_from="direct").model
+    assert d.late.start_s == pytest.approx(0.0025) and d.late.diffuse_from_s is None
     t30 = res.report.cell("1k", "t30_s")
     assert abs(t30.difference_jnd) <= 1.0  # T30 is calibrated either way (1 JND = 5 %)
