@@ -7,7 +7,8 @@ See :mod:`measure.model.modelfile` for the model. Rendering is
 with band-limited (windowed-sinc) impulses at the exact, fractional delays, the coloration
 filter ``C`` at the rendering rate (remapped by :func:`measure.model.coloration.coloration_sos`
 when the rate differs from the fitting rate) and the late part from
-:func:`measure.model.late.render_late`.
+:func:`measure.model.late.render_late` at the fitting rate, resampled to the rendering rate
+(the envelope was fitted to that rendering; see :func:`_late_at`).
 """
 
 from __future__ import annotations
@@ -77,8 +78,37 @@ def render_model(model: RoomModel, fs: int, seconds: float) -> np.ndarray:
     h = render_early(model, fs, n)
     shift = int(round(model.direct_delay_s * fs))
     if shift < n:
-        h[shift:] += render_late(model.late, fs, n - shift)
+        h[shift:] += _late_at(model, fs, n - shift)
     return h
+
+
+def _late_at(model: RoomModel, fs: int, n_samples: int) -> np.ndarray:
+    """The late part at ``fs``: rendered at the fitting rate and resampled when ``fs`` differs.
+
+    The envelope correction was fitted to the network's output at the fitting rate; the
+    network at another rate (other prime line lengths) is another realisation, which the
+    envelope does not fit (measured on the demo office: EDT at 1 kHz 32 JNDs off at 96 kHz).
+    So the late part is rendered where it was fitted and resampled (scipy.signal.
+    resample_poly), band-limited to the fitting rate's Nyquist like the measurement it
+    models. Its amplitude is scaled by fit_fs/fs: a discrete unit impulse at the fitting rate,
+    resampled to ``fs`` and so scaled, is a unit impulse at ``fs`` low-passed at the old
+    Nyquist frequency (derived: both have the spectrum fit_fs/fs·1 below it), so every band's
+    late energy keeps its ratio to the direct sound's, which is a unit impulse at every rate.
+    """
+    from math import gcd
+
+    from scipy.signal import resample_poly
+
+    fit_fs = int(round(float(model.fit_fs)))
+    if fit_fs == fs:
+        return render_late(model.late, fs, n_samples)
+    n_fit = int(np.ceil(n_samples * fit_fs / fs)) + 16
+    y = render_late(model.late, fit_fs, n_fit)
+    g = gcd(fs, fit_fs)
+    out = resample_poly(y, fs // g, fit_fs // g)[:n_samples] * (fit_fs / fs)
+    if out.size < n_samples:
+        out = np.concatenate((out, np.zeros(n_samples - out.size)))
+    return out
 
 
 def auralize(dry: np.ndarray, fs: int, ir: np.ndarray) -> np.ndarray:
