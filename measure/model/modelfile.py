@@ -19,7 +19,8 @@ File layout (format ``measure.room-model``, version 1)
 ``about`` : str
     One sentence saying what the file is (for a reader who opens it by eye).
 ``fit_fs`` : int, Hz
-    Sample rate of the measured response the model was fitted to (rendering works at any rate).
+    Sample rate of the measured response the model was fitted to (rendering works at any rate;
+    the late part is rendered at this rate, to which its envelope was fitted, and resampled).
 ``direct`` : object
     ``delay_s`` (arrival of the direct sound in the measured response, s) and ``gain`` (its
     amplitude factor applied before the coloration filter; 1 when the filter carries the level).
