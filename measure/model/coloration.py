@@ -77,6 +77,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import linalg, optimize, signal, special
 
 from measure._validate import check_fs, check_positive, check_signal
+from measure.decay import onset_index
 from measure.errors import FitError, ParameterError
 from measure.model._smoothing import log_grid_hz, log_spectral_distance, smooth_power
 
@@ -547,8 +548,7 @@ def _lsd_band(fs: int) -> tuple[float, float]:
 
 
 def _taper_early(h: NDArray[np.float64], fs: int, window_s: float) -> NDArray[np.float64]:
-    peak = np.max(np.abs(h))
-    onset = int(np.argmax(np.abs(h) >= 0.1 * peak))  # first sample within 20 dB of the peak
+    onset = onset_index(h, fs)  # first sample within 20 dB of the peak
     n_win = max(8, int(round(window_s * fs)))
     end = min(h.size, onset + n_win)
     seg = h[:end].copy()
@@ -617,10 +617,10 @@ def fit_coloration(h: ArrayLike, fs: int, *, order: int | None = None,
     if isinstance(max_order, bool) or not isinstance(max_order, (int, np.integer)) \
             or not 2 <= max_order <= 64:
         raise ParameterError(f"max_order={max_order!r} must be a whole number from 2 to 64")
-    if window_s is not None:
-        h = _taper_early(h, fs, check_positive(window_s, "window_s", unit="s"))
     if not np.any(h):
         raise ParameterError("h is all zeros; give a measured impulse response")
+    if window_s is not None:
+        h = _taper_early(h, fs, check_positive(window_s, "window_s", unit="s"))
 
     f_fft, spectrum = _rfft_response(h, fs)
     f_grid, weight = _fit_grid(f_lo_hz, f_hi_hz, fs)

@@ -38,6 +38,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import optimize, signal
 
 from measure._validate import check_fs, check_positive, check_signal
+from measure.decay import onset_index
 from measure.errors import FitError, ParameterError
 
 __all__ = ["Echoes", "find_echoes", "direct_sound_index"]
@@ -113,9 +114,10 @@ class Echoes:
 
 
 def direct_sound_index(h: NDArray[np.float64], fs: int) -> int:
-    """Largest |h| within 1 ms after the onset (first sample within 20 dB of the peak)."""
+    """Largest |h| within 1 ms after the onset (:func:`measure.decay.onset_index`: the first
+    sample within 20 dB of the peak)."""
     a = np.abs(h)
-    onset = int(np.argmax(a >= 0.1 * np.max(a)))
+    onset = onset_index(h, fs)
     end = min(h.size, onset + max(1, int(round(0.001 * fs))) + 1)
     return onset + int(np.argmax(a[onset:end]))
 

@@ -28,9 +28,10 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import signal, special
 
 from measure._validate import check_fs, check_positive, check_signal
+from measure.decay import onset_index
 from measure.errors import FitError, ParameterError
 
-__all__ = ["EchoDensity", "echo_density", "mixing_time", "onset_index", "GAUSSIAN_FRACTION"]
+__all__ = ["EchoDensity", "echo_density", "mixing_time", "GAUSSIAN_FRACTION"]
 
 #: erfc(1/√2): fraction of a Gaussian outside ±1 standard deviation (analytic).
 GAUSSIAN_FRACTION = float(special.erfc(1.0 / math.sqrt(2.0)))
@@ -67,12 +68,6 @@ class EchoDensity:
         """Plain-JSON form."""
         return {"fs": self.fs, "window_s": self.window_s, "hop_s": self.hop_s,
                 "times_s": self.times_s.tolist(), "eta": self.eta.tolist()}
-
-
-def onset_index(h: NDArray[np.float64]) -> int:
-    """First sample within 20 dB of the peak of |h| (modeling.md §3, onset rule)."""
-    a = np.abs(h)
-    return int(np.argmax(a >= 0.1 * np.max(a)))
 
 
 def echo_density(h: ArrayLike, fs: int, *, window_s: float = 0.02,
@@ -145,7 +140,8 @@ def mixing_time(h: ArrayLike, fs: int, *, window_s: float = 0.02, threshold: flo
     float, s
         Time re the first sample of ``h`` (not re the direct sound: subtract the direct-sound
         time for that). The search starts at the onset, the first sample within 20 dB of the
-        peak, so that noise before the direct sound is not taken for a mixed field.
+        peak (:func:`measure.decay.onset_index`, ISO 3382-1 A.3.4), so that noise before the
+        direct sound is not taken for a mixed field.
 
     Raises
     ------
@@ -155,7 +151,7 @@ def mixing_time(h: ArrayLike, fs: int, *, window_s: float = 0.02, threshold: flo
     """
     threshold = check_positive(threshold, "threshold")
     prof = echo_density(h, fs, window_s=window_s, hop_s=hop_s)
-    n0 = onset_index(np.asarray(h, dtype=np.float64))
+    n0 = onset_index(np.asarray(h, dtype=np.float64), prof.fs)
     after = prof.times_s >= n0 / prof.fs
     hit = np.flatnonzero(after & (prof.eta >= threshold))
     if hit.size == 0:
