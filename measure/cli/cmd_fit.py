@@ -49,10 +49,9 @@ def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from measure import audio_io
-    from measure.cli._common import info, print_json
+    from measure.cli._common import channel_index, info, print_json
     from measure.errors import ParameterError
-    from measure.model.fit import fit_model
-    from measure.model.i3dl2 import estimate_i3dl2
+    from measure.model.fit import fit_with_i3dl2
 
     out = Path(args.out)
     if out.suffix.lower() != ".json":
@@ -67,34 +66,24 @@ def run(args: argparse.Namespace) -> int:
         check_png_path(args.plot, option="--plot")
         require_matplotlib()
     audio = audio_io.read_audio(args.ir)
-    if not 1 <= args.channel <= audio.n_channels:
-        raise ParameterError(
-            f"--channel {args.channel} does not exist: {args.ir} has {audio.n_channels} "
-            f"channel(s); choose one of 1..{audio.n_channels}")
-    h = audio.x[args.channel - 1]
+    h = audio.x[channel_index(args.channel, audio.n_channels, option="--channel",
+                              source=args.ir)]
     source = {"file": Path(args.ir).name, "sha256": audio_io.file_sha256(args.ir),
               "channel": args.channel, "order": args.order, "echoes": args.echoes,
               "late_from": args.late_from}
-    result = fit_model(h, audio.fs, order=args.order, n_echoes=args.echoes,
-                       late_from=args.late_from, source=source)
-    i3 = estimate_i3dl2(h, audio.fs, result.model)
+    result, i3 = fit_with_i3dl2(h, audio.fs, order=args.order, n_echoes=args.echoes,
+                                late_from=args.late_from, source=source)
     m = result.model
-    model = m.replace(i3dl2=i3.to_dict())
-    audio_io.write_json(out, model.to_dict())
+    audio_io.write_json(out, m.to_dict())
     if args.plot is not None:
-        from measure.model.render import render_model
-        from measure.parameters import analyze_ir
         from measure.report import write_model_plot
 
-        # the two analyses the fit's last pass made (rendering is deterministic)
-        measured = analyze_ir(h, audio.fs, sti=False)
-        modelled = analyze_ir(render_model(result.model, audio.fs, h.size / audio.fs), audio.fs,
-                              sti=False)
-        path = write_model_plot(args.plot, measured, modelled, result.report,
+        # the analyses the report was made from
+        path = write_model_plot(args.plot, result.measured, result.modelled, result.report,
                                 f"{Path(args.ir).name}: measured against the fitted model")
         info(f"plot written to {path}")
     if args.json:
-        print_json({"model": model.to_dict(), "report": result.report.to_dict(),
+        print_json({"model": m.to_dict(), "report": result.report.to_dict(),
                     "i3dl2": i3.to_dict()})
     else:
         print(f"{args.ir}: {audio.fs} Hz, {h.size / audio.fs:.2f} s; model written to {out}")

@@ -101,6 +101,7 @@ __all__ = [
     "FitResult",
     "ReportCell",
     "fit_model",
+    "fit_with_i3dl2",
     "compare_figures",
     "REPORT_PARAMETERS",
     "ENVELOPE_SPLITS_S",
@@ -275,10 +276,18 @@ def _fmt(v: float | None, key: str) -> str:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class FitResult:
-    """What :func:`fit_model` returns: the model and its report."""
+    """What :func:`fit_model` returns: the model and its report.
+
+    ``measured`` and ``modelled`` are the :class:`measure.parameters.RoomFigures` the report
+    was made from (the analysis of the measurement and of the model rendered at the fitting
+    rate, as long as the measurement), kept so that a caller (``measure fit --plot``) need not
+    render and analyse again; they are not part of :meth:`to_dict`.
+    """
 
     model: RoomModel
     report: FitReport
+    measured: Any = None
+    modelled: Any = None
 
     def to_dict(self) -> dict[str, Any]:
         return {"model": self.model.to_dict(), "report": self.report.to_dict()}
@@ -519,7 +528,31 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     report = compare_figures(measured, modelled,
                              lsd_db=None if coloration is None else float(coloration.lsd_db),
                              fit_seconds=time.perf_counter() - t_start)
-    return FitResult(model, report)
+    return FitResult(model, report, measured, modelled)
+
+
+def fit_with_i3dl2(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None = None,
+                   late_from: Literal["mixing", "direct"] = "mixing",
+                   source: dict | None = None) -> tuple[FitResult, Any]:
+    """:func:`fit_model`, then the room as an I3DL2 set written into the model.
+
+    What ``measure fit`` and :func:`model_demo` write: the model file holds the set
+    (``model.i3dl2``) estimated by :func:`measure.model.i3dl2.estimate_i3dl2`.
+
+    Returns
+    -------
+    result : FitResult
+        Its model carries ``i3dl2``; report and figures as :func:`fit_model` gives them.
+    i3dl2 : measure.model.i3dl2.I3dl2Set
+    """
+    from measure.model.i3dl2 import estimate_i3dl2
+
+    h = check_signal(h, "impulse response", ndim=(1,))
+    fs = check_fs(fs)
+    res = fit_model(h, fs, order=order, n_echoes=n_echoes, late_from=late_from, source=source)
+    i3 = estimate_i3dl2(h, fs, res.model)
+    model = res.model.replace(i3dl2=i3.to_dict())
+    return FitResult(model, res.report, res.measured, res.modelled), i3
 
 
 def _band_costs(measured, modelled) -> np.ndarray:
@@ -736,19 +769,17 @@ def model_demo(h: Any, fs: int, *, dry: np.ndarray | None = None,
         ``wet_measured`` / ``wet_modelled`` as the auralized pair (all at ``fs``).
     """
     from measure.model.drysound import dry_demo_sound
-    from measure.model.i3dl2 import estimate_i3dl2
     from measure.model.render import auralize, render_model
 
     h = check_signal(h, "impulse response", ndim=(1,))
     fs = check_fs(fs)
-    res = fit_model(h, fs, source=source)
-    i3 = estimate_i3dl2(h, fs, res.model)
-    model = res.model.replace(i3dl2=i3.to_dict())
+    res, i3 = fit_with_i3dl2(h, fs, source=source)
+    model = res.model
     x = dry_demo_sound(fs) if dry is None else check_signal(dry, "dry sound", ndim=(1,))
     model_ir = render_model(model, fs, h.size / fs)
     wet_m = auralize(x, fs, h)
     wet_o = auralize(x, fs, model_ir)
     peak = max(float(np.max(np.abs(wet_m))), float(np.max(np.abs(wet_o))), 1e-30)
     k = 10.0 ** (-1.0 / 20.0) / peak
-    return ModelDemo(FitResult(model, res.report), i3, model_ir, np.array(x), wet_m * k,
+    return ModelDemo(res, i3, model_ir, np.array(x), wet_m * k,
                      wet_o * k, fs)
