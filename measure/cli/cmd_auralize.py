@@ -31,7 +31,7 @@ def run(args: argparse.Namespace) -> int:
     import numpy as np
 
     from measure import audio_io
-    from measure.cli._common import info
+    from measure.cli._common import channel_index, info
     from measure.errors import ParameterError
     from measure.model.render import auralize, default_seconds, render_model
 
@@ -54,10 +54,7 @@ def run(args: argparse.Namespace) -> int:
             raise ParameterError(
                 f"{room} is at {a.fs} Hz but {args.dry} at {dry.fs} Hz; resample one of them "
                 "(or fit a model, which renders at any rate)")
-        if not 1 <= args.channel <= a.n_channels:
-            raise ParameterError(
-                f"--channel {args.channel} does not exist: {room} has {a.n_channels} channel(s)")
-        ir = a.x[args.channel - 1]
+        ir = a.x[channel_index(args.channel, a.n_channels, option="--channel", source=str(room))]
         what = f"measured response {room.name}"
     wet = auralize(dry.x, dry.fs, ir)
     peak = float(np.max(np.abs(wet)))
