@@ -11,6 +11,8 @@ import soundfile as sf
 from measure.audio_io import write_audio
 from measure.cli import main
 from measure.model.drysound import dry_demo_sound
+from measure.model.modelfile import model_from_dict
+from measure.model.render import default_seconds
 from measure.virtual import DEMO_ROOMS, room_ir
 
 FS = 48000
@@ -65,6 +67,9 @@ def test_render_defaults_to_the_fitting_rate(files):
     assert main(["render", str(files["model"]), "--out", str(out)]) == 0
     info = sf.info(str(out))
     assert info.samplerate == FS and info.channels == 1
+    # and the documented default length (render --help, measure.model.render.default_seconds)
+    model = model_from_dict(json.loads(files["model"].read_text()))
+    assert info.frames == round(default_seconds(model) * FS)
 
 
 def test_auralize_measured_and_modelled(files):

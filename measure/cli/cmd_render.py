@@ -19,7 +19,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rate", type=int, default=None, metavar="HZ",
                    help="sample rate in Hz (default: the fitting rate)")
     p.add_argument("--seconds", type=float, default=None, metavar="S",
-                   help="length in seconds (default: direct delay + 1.2 × the longest T60)")
+                   help="length in seconds (default: direct delay + late start + 1.2 × the "
+                        "longest T60)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -36,11 +37,14 @@ def run(args: argparse.Namespace) -> int:
         raise ParameterError(f"--out {args.out!r} must end in .wav; name it e.g. model_ir.wav")
     model = model_from_dict(audio_io.read_json(args.model, what="model file"))
     fs = model.fit_fs if args.rate is None else args.rate
-    if fs is None or fs < 8000 or fs > 384000:
-        raise ParameterError(f"--rate {fs} must be a sample rate between 8000 and 384000 Hz")
+    if not 8000 <= fs <= 384000:
+        given = f"--rate {fs}" if args.rate is not None else f"the model's fitting rate {fs} Hz"
+        raise ParameterError(f"{given} is not a sample rate between 8000 and 384000 Hz; give "
+                             "--rate in that range, e.g. --rate 48000")
     seconds = default_seconds(model) if args.seconds is None else args.seconds
     if not (seconds > 0) or seconds > 120:
-        raise ParameterError(f"--seconds {seconds} must be > 0 and at most 120")
+        raise ParameterError(f"--seconds {seconds} must be > 0 and at most 120; give a length "
+                             "in that range")
     h = render_model(model, fs, seconds)
     audio_io.write_audio(out, h, fs, subtype="FLOAT")
     info(f"wrote {out}: {h.size / fs:.2f} s at {fs} Hz, mono 32-bit float")

@@ -51,7 +51,8 @@ def render_early(model: RoomModel, fs: int, n_samples: int) -> np.ndarray:
 
 
 def default_seconds(model: RoomModel) -> float:
-    """A rendering length that holds the whole decay: direct delay + 1.2 × the longest T60."""
+    """A rendering length that holds the whole decay: direct delay + the late part's start +
+    1.2 × the longest T60 (72 dB of decay)."""
     return float(model.direct_delay_s + model.late.start_s + 1.2 * max(model.late.t60_s))
 
 
