@@ -49,6 +49,7 @@ correction is applied, as in the reference check values.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -72,6 +73,7 @@ __all__ = [
     "ART_DB",
     "masking_slope_db",
     "auditory_factor",
+    "check_noise_levels",
 ]
 
 #: Octave bands of the STI (IEC 60268-16:2020): 125 Hz … 8 kHz.
@@ -345,6 +347,38 @@ def _octave_levels(v: float | np.ndarray, name: str) -> np.ndarray:
     return out
 
 
+def check_noise_levels(snr_db: float | np.ndarray | None = None,
+                       speech_spl_db: float | np.ndarray | None = None,
+                       noise_spl_db: float | np.ndarray | None = None
+                       ) -> tuple[np.ndarray | None, np.ndarray | None, np.ndarray | None]:
+    """Check the STI's background-noise arguments (see :func:`sti_from_ir`).
+
+    Returns
+    -------
+    (snr_db, speech_spl_db, noise_spl_db) : ndarray, shape (7,), or None
+        ``snr_db`` is ``speech_spl_db - noise_spl_db`` when the levels are given.
+
+    Raises
+    ------
+    ParameterError
+        If ``snr_db`` comes with the levels, only one of the levels is given, or a value is
+        not one finite number or seven.
+    """
+    if snr_db is not None and (speech_spl_db is not None or noise_spl_db is not None):
+        raise ParameterError("give either snr_db or speech_spl_db with noise_spl_db, not both")
+    if (speech_spl_db is None) != (noise_spl_db is None):
+        raise ParameterError("the STI noise correction needs both speech_spl_db and "
+                             "noise_spl_db (the speech-to-noise ratio is their difference); "
+                             "give both, or snr_db")
+    if speech_spl_db is not None:
+        ls = _octave_levels(speech_spl_db, "speech_spl_db")
+        ln = _octave_levels(noise_spl_db, "noise_spl_db")
+        return ls - ln, ls, ln
+    if snr_db is not None:
+        return _octave_levels(snr_db, "snr_db"), None, None
+    return None, None, None
+
+
 def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
                 snr_db: float | np.ndarray | None = None,
                 speech_spl_db: float | np.ndarray | None = None,
@@ -378,19 +412,7 @@ def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
     ParameterError
         If ``h`` is not a finite 1-D signal, ``fs`` is too low, or ``snr_db`` is malformed.
     """
-    snr = ls = ln = None
-    if (speech_spl_db is None) != (noise_spl_db is None):
-        raise ParameterError("the masking correction needs both speech_spl_db and "
-                             "noise_spl_db; give both, or snr_db")
-    if speech_spl_db is not None:
-        if snr_db is not None:
-            raise ParameterError("give either snr_db or speech_spl_db with noise_spl_db, "
-                                 "not both")
-        ls = _octave_levels(speech_spl_db, "speech_spl_db")
-        ln = _octave_levels(noise_spl_db, "noise_spl_db")
-        snr = ls - ln
-    elif snr_db is not None:
-        snr = _octave_levels(snr_db, "snr_db")
+    snr, ls, ln = check_noise_levels(snr_db, speech_spl_db, noise_spl_db)
     m, flags = mtf_from_ir(h, fs, onset=onset)
     if ls is not None:
         m = m * auditory_factor(ls, ln)[:, None]
@@ -399,7 +421,4 @@ def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
     res = sti_from_mtf(m, snr_db=snr, flags=flags)
     if ls is None:
         return res
-    return StiResult(sti=res.sti, rating=res.rating, mti=np.array(res.mti),
-                     mtf=np.array(res.mtf),
-                     modulation_frequencies_hz=np.array(res.modulation_frequencies_hz),
-                     snr_db=snr, flags=res.flags, speech_spl_db=ls, noise_spl_db=ln)
+    return dataclasses.replace(res, speech_spl_db=ls, noise_spl_db=ln)

@@ -53,6 +53,7 @@ from measure._validate import check_fs, check_signal
 from measure.bands import Band, band_filter_sos, filter_bands, filter_order, make_bands
 from measure.decay import DecayFigures, analyze_decay, lundeby, onset_index
 from measure.errors import ParameterError
+from measure.intelligibility import check_noise_levels, sti_from_ir
 
 __all__ = [
     "JND_EDT_RELATIVE",
@@ -730,12 +731,9 @@ def analyze_ir(h: np.ndarray, fs: int, *,
         if not band_set or not all(isinstance(b, Band) for b in band_set):
             raise ParameterError("bands must be 'octave', 'third' or a non-empty tuple of Band")
         kind = "custom"
-    if snr_db is not None and (speech_spl_db is not None or noise_spl_db is not None):
-        raise ParameterError("give either snr_db or speech_spl_db with noise_spl_db, not both")
-    if (speech_spl_db is None) != (noise_spl_db is None):
-        raise ParameterError("the STI noise correction needs both speech_spl_db and "
-                             "noise_spl_db (the speech-to-noise ratio is their difference); "
-                             "give both, or snr_db")
+    # the STI's noise arguments are checked before any work, so that a ParameterError from
+    # the STI computation below can only mean "not computable for this IR" (a flag)
+    check_noise_levels(snr_db, speech_spl_db, noise_spl_db)
     if h.shape[0] < int(0.1 * fs):
         raise ParameterError(f"the impulse response is only {h.shape[0] / fs * 1000:.0f} ms "
                              "long; give at least 100 ms (better: the whole decay)")
@@ -764,14 +762,10 @@ def analyze_ir(h: np.ndarray, fs: int, *,
     flags: list[str] = []
     sti_res = None
     if sti:
-        from measure.intelligibility import sti_from_ir
-
         try:
             sti_res = sti_from_ir(h, fs, onset=onset, snr_db=snr_db,
                                   speech_spl_db=speech_spl_db, noise_spl_db=noise_spl_db)
         except ParameterError as err:
-            if any(k in str(err) for k in ("snr_db", "speech_spl_db", "noise_spl_db")):
-                raise
             flags.append(f"STI not computed: {err}")
     return RoomFigures(fs=fs, kind=kind, bands=tuple(per_band), broadband=broadband,
                        single_numbers=singles, sti=sti_res, onset_index=onset,

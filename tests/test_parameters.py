@@ -221,6 +221,21 @@ def test_bad_inputs():
         analyze_ir(np.ones(FS), FS, snr_db=10.0, speech_spl_db=60.0, noise_spl_db=50.0)
     with pytest.raises(ParameterError, match="NaN or Inf"):
         analyze_ir(np.full(FS, np.nan), FS)
+    # a malformed STI argument is the caller's mistake, not "STI not computed"
+    with pytest.raises(ParameterError, match=r"snr_db=\[1\.0, 2\.0\] must be one number or 7"):
+        analyze_ir(np.ones(FS), FS, snr_db=[1.0, 2.0])
+
+
+def test_sti_that_the_sample_rate_cannot_carry_is_null_with_a_reason(rng):
+    # IEC 60268-16 needs the 8 kHz octave (upper edge 11.2 kHz, measurement.md §4.1); at 16 kHz
+    # the analysis still gives the room figures, and the STI is null with the reason.
+    fs = 16000
+    t = np.arange(fs) / fs
+    h = rng.standard_normal(fs) * np.exp(-DECAY_CONSTANT * t / (2 * 0.5))
+    figs = analyze_ir(h, fs, snr_db=10.0)
+    assert figs.sti is None and figs.to_dict()["sti"] is None
+    assert any(f.startswith("STI not computed: the STI needs the octaves 125 Hz–8 kHz")
+               for f in figs.flags), figs.flags
 
 
 @pytest.mark.parametrize("room_name", ["stairwell", "office", "parking"])
