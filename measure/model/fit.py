@@ -88,6 +88,7 @@ import numpy as np
 from measure._validate import check_choice, check_fs, check_signal
 from measure.errors import FitError, ParameterError
 from measure.model.late import (
+    CALIBRATION_RANGE,
     LateReverb,
     envelope_gain,
     kept_bands,
@@ -420,7 +421,6 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
         # shaped noise) carries the diffuse energy from the end of the direct-sound window
         late_start, fade = mixing_s - MIXING_FADE_S, MIXING_FADE_S
         diffuse_from = LATE_START_S
-    env_start = LATE_START_S  # envelope segments: from the end of the direct-sound window
     late = LateReverb(tuple(float(v) for v in centers), tuple(t_target), (0.0,) * centers.size,
                       late_start, fade, nominal_delays_s(max(t_target)),
                       diffuse_from_s=diffuse_from)
@@ -437,7 +437,8 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     f_early = filter_bands(render_early(base, fs, n), fs, bands, mode=MATCH_FILTERING)
     horizon_s = (n - shift) / fs
     noise = _noise_power(measured, f_meas)
-    segs = _band_segments(measured, t0, horizon_s, env_start)
+    # envelope segments: from the end of the direct-sound window
+    segs = _band_segments(measured, t0, horizon_s, LATE_START_S)
     want = []
     for i, e in enumerate(segs):
         idx = np.clip(np.round(e * fs).astype(int) + shift, 0, n)
@@ -460,7 +461,10 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     late = late.replace(level_db=tuple(levels))
 
     t60 = np.array(t_target, dtype=np.float64)
-    lo, hi = t60 / 1.6, t60 * 1.6
+    # each band's decay time stays within CALIBRATION_RANGE of where it started (an octave
+    # filter that cannot separate a band from a much longer-decaying neighbour must not drive
+    # it to nonsense)
+    lo, hi = t60 / CALIBRATION_RANGE, t60 * CALIBRATION_RANGE
     # EDT: the early decay is set by where the band's EDC crosses -10 dB, often on a flat
     # stretch just after the direct sound, so a fraction of a dB there moves EDT by many JNDs.
     # A tilt of the wanted early energy about that crossing (less before, more after) is
@@ -482,8 +486,6 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     after_split = [0.5 * (e[1:] + e[:-1]) > ENVELOPE_SPLITS_S[-1] for e in segs]
     step_c80 = np.zeros(centers.size)
     c80_history: list[list[tuple[float, float]]] = [[] for _ in range(centers.size)]
-    model = base
-    modelled = None
     passes: list[tuple[LateReverb, Any, np.ndarray]] = []
     t_axis = np.arange(n - shift) / fs
     for _ in range(N_CALIBRATION_PASSES):
@@ -523,7 +525,6 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
                 # too much clarity: more energy after the split (first step: the error itself)
                 step_c80[i] = _next_tilt(c80_history[i], step_c80[i], ob.c80_db - mb.c80_db,
                                          C80_TOLERANCE_DB, -1.0)
-    assert modelled is not None
     model, modelled = _best_of_passes(base, passes, measured, fs, n)
     report = compare_figures(measured, modelled,
                              lsd_db=None if coloration is None else float(coloration.lsd_db),
