@@ -53,7 +53,7 @@ def run(args: argparse.Namespace) -> int:
     from measure.audio_io import file_sha256, read_audio, read_json, sidecar_path
     from measure.capture import input_stats
     from measure.cli import cmd_capture as cc
-    from measure.cli._common import info, print_json
+    from measure.cli._common import channel_index, info, print_json
     from measure.errors import AudioFileError, ParameterError
 
     room = session.check_label(args.room, "room")
@@ -72,14 +72,14 @@ def run(args: argparse.Namespace) -> int:
         raise ParameterError("--channels and --loopback-channel need --sweep; add it")
     n_ch = audio.n_channels
     rows = (list(range(n_ch)) if args.channels is None
-            else cc.parse_channels(args.channels, "--channels"))
+            else [channel_index(c + 1, n_ch, option="--channels", source=str(src))
+                  for c in cc.parse_channels(args.channels, "--channels")])
     loop = None
     if args.loopback_channel is not None:
-        loop = args.loopback_channel - 1
+        loop = channel_index(args.loopback_channel, n_ch, option="--loopback-channel",
+                             source=str(src))
         if loop not in rows:
             rows.append(loop)
-    if max(rows) >= n_ch:
-        raise ParameterError(f"{src} has {n_ch} channel(s); channels are 1..{n_ch}")
     old_side = None
     sp = sidecar_path(src)
     if sp.exists() and sp.resolve() != src.resolve():
