@@ -414,6 +414,22 @@ def test_import_files_an_offline_take_and_analyses_it(sweeps, tmp_path):
     assert r.returncode == 0 and (tmp_path / "caps" / "hall" / "S1-R2-take2.wav").exists()
 
 
+@pytest.mark.parametrize("opts", [["--loopback-channel", "0"], ["--loopback-channel", "3"],
+                                  ["--channels", "3"]])
+def test_import_refuses_a_channel_the_file_lacks(sweeps, tmp_path, opts):
+    # Channels are numbered 1..n on the command line; 0 once slipped through as Python's index
+    # -1 (the last channel) and filed the take. Now: exit 2, one error line, nothing filed.
+    from measure.audio_io import read_sweep
+
+    sweep = read_sweep(sweeps["s48"])
+    src = tmp_path / "two.wav"
+    write_audio(src, np.stack([sweep.program, sweep.program]), sweep.fs)
+    r = measure("import", str(src), "--room", "hall", "--position", "P1", "--captures",
+                str(tmp_path / "caps"), "--sweep", str(sweeps["s48"]), *opts, cwd=tmp_path)
+    assert r.returncode == 2 and r.stderr.startswith("error: ") and "1..2" in r.stderr
+    assert not (tmp_path / "caps").exists()
+
+
 @pytest.mark.audio_server
 def test_asks_before_playing_on_a_terminal(audio_server, sweeps, tmp_path):  # noqa: F811
     import pty
