@@ -17,6 +17,7 @@ from measure.model.late import (
     band_masks,
     calibrate_decay,
     coprime_delays,
+    half_spectrum_weights,
     line_gains,
     min_total_delay,
     nominal_delays_s,
@@ -208,3 +209,13 @@ def test_early_diffuse_start_is_checked():
     with pytest.raises(ParameterError, match="diffuse_from_s"):
         LateReverb((1000.0,), (0.5,), (-10.0,), 0.02, 0.005, nominal_delays_s(0.5),
                    diffuse_from_s=0.03)
+
+
+@pytest.mark.parametrize("n_fft", [64, 65])
+def test_half_spectrum_weights_give_parseval(n_fft):
+    # Parseval's theorem for the DFT: Σ x² = (1/N) Σ_k |X_k|² over all N bins; the rfft half
+    # holds each interior bin once for itself and once for its mirror (derived). Even and odd
+    # N differ only in whether a Nyquist bin exists. 1e-12: float64 round-off.
+    x = np.random.default_rng(3).standard_normal(n_fft)
+    e = np.abs(np.fft.rfft(x)) ** 2 @ half_spectrum_weights(n_fft) / n_fft
+    assert e == pytest.approx(float(np.sum(x * x)), rel=1e-12)

@@ -44,7 +44,13 @@ from typing import Any
 import numpy as np
 
 from measure._validate import check_fs
-from measure.model.late import LateReverb, nominal_delays_s, render_late, white_levels_db
+from measure.model.late import (
+    LateReverb,
+    half_spectrum_weights,
+    nominal_delays_s,
+    render_late,
+    white_levels_db,
+)
 from measure.model.modelfile import RoomModel
 
 __all__ = ["I3DL2_RANGES", "I3dl2Set", "estimate_i3dl2", "render_i3dl2", "measure_i3dl2"]
@@ -136,10 +142,7 @@ def _band_energies(parts: list[np.ndarray], fs: int, f_lo: float, f_hi: float) -
     m = np.clip((lf - (math.log2(f_lo) - edge / 2)) / edge, 0, 1) * np.clip(
         ((math.log2(f_hi) + edge / 2) - lf) / edge, 0, 1)
     m2 = np.sin(0.5 * np.pi * m) ** 4
-    w = np.full(f.size, 2.0)  # a real signal's half spectrum: interior bins count twice
-    w[0] = 1.0
-    if n_fft % 2 == 0:
-        w[-1] = 1.0
+    w = half_spectrum_weights(n_fft)
     return [float(np.sum(w * m2 * np.abs(rfft(p, n_fft)) ** 2) / n_fft) for p in parts]
 
 

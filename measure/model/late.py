@@ -82,6 +82,7 @@ __all__ = [
     "run_network",
     "stored_energy",
     "band_masks",
+    "half_spectrum_weights",
     "render_late",
     "min_total_delay",
     "white_levels_db",
@@ -400,6 +401,19 @@ def _sign_pattern(n: int, salt: int) -> np.ndarray:
     return np.where(frac < 0.5, 1.0, -1.0)
 
 
+def half_spectrum_weights(n_fft: int) -> np.ndarray:
+    """Parseval weights of the ``n_fft // 2 + 1`` bins of a real signal's ``rfft``.
+
+    ``Σ x² = (|X|² @ w) / n_fft``: the interior bins stand for themselves and their mirror
+    images (weight 2); DC, and Nyquist for an even ``n_fft``, only for themselves (weight 1).
+    """
+    w = np.full(n_fft // 2 + 1, 2.0)
+    w[0] = 1.0
+    if n_fft % 2 == 0:
+        w[-1] = 1.0
+    return w
+
+
 def band_masks(band_centers_hz: Sequence[float], freqs_hz: np.ndarray, *,
                transition_octaves: float | None = None) -> np.ndarray:
     """Amplitude-complementary band masks: ``Σ_b W_b(f) = 1`` at every frequency.
@@ -623,12 +637,7 @@ def render_late_bands(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
     buf[:, lead: lead + n_body] = seg
     spec = rfft(buf, axis=1)
     spec *= band_masks(fc, np.arange(spec.shape[1]) * fs / n_fft)
-    # Parseval for a real signal's half spectrum: interior bins count twice
-    wts = np.full(spec.shape[1], 2.0)
-    wts[0] = 1.0
-    if n_fft % 2 == 0:
-        wts[-1] = 1.0
-    energy = (np.abs(spec) ** 2 @ wts) / n_fft
+    energy = (np.abs(spec) ** 2 @ half_spectrum_weights(n_fft)) / n_fft
     target = 10.0 ** (np.asarray(late.level_db)[keep] / 10.0)
     spec *= np.sqrt(target / np.maximum(energy, 1e-300))[:, np.newaxis]
     body = irfft(spec, n=n_fft, axis=1)
@@ -677,12 +686,8 @@ def _early_diffuse(late: LateReverb, fs: int, n_samples: int, net_out: np.ndarra
     masks = band_masks(fc, np.arange(spec.size) * fs / n_fft)
     noise = irfft(spec[np.newaxis, :] * masks, n=n_fft, axis=1)[:, pad: pad + n_seg]
     # expected power of unit white noise through a zero-phase mask: the mean of |W|² over the
-    # whole spectrum (interior bins of the half spectrum count twice)
-    wts = np.full(spec.size, 2.0)
-    wts[0] = 1.0
-    if n_fft % 2 == 0:
-        wts[-1] = 1.0
-    p_noise = (masks ** 2 @ wts) / n_fft
+    # whole spectrum
+    p_noise = (masks ** 2 @ half_spectrum_weights(n_fft)) / n_fft
     t60 = np.asarray(late.t60_s)[keep][:, np.newaxis]
     rate = DECAY_60DB_E / t60  # energy decay per second
     # the network's power at its start: its band energy level_db spread over an exponential
