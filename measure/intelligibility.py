@@ -294,32 +294,50 @@ def mtf_from_band(h_band: np.ndarray, fs: int, *, stop_index: int | None = None,
     return np.minimum(np.abs(num) / den, 1.0)
 
 
-def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None) -> tuple[np.ndarray,
-                                                                               tuple[str, ...]]:
+def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
+                y_bands: np.ndarray | None = None) -> tuple[np.ndarray, tuple[str, ...]]:
     """MTF matrix (7, 14) of an IR, octave-filtered (causal, IEC 61260-1 class 1).
 
     Each band is truncated at its Lundeby crosspoint and continued by its fitted late decay
     (see the module notes). Returns the matrix and flags (e.g. a band without measurable
     decay).
 
+    Parameters
+    ----------
+    h : ndarray, shape (n,)
+        Broadband impulse response.
+    fs : int, > 0, Hz
+    onset : int, optional
+        Start index (ISO 3382-1 onset of ``h`` by default).
+    y_bands : ndarray, shape (7, n), optional
+        ``h`` already filtered causally through the octaves 125 Hz … 8 kHz, i.e.
+        ``filter_bands(h, fs, make_bands(fs, "octave", 125, 8000), mode="causal")``; given by
+        a caller that has them (:func:`measure.parameters.analyze_ir`) so that they are not
+        filtered twice.
+
     Raises
     ------
     ParameterError
-        If ``fs`` cannot carry the 8 kHz octave with a class 1 filter.
+        If ``fs`` cannot carry the 8 kHz octave with a class 1 filter, or ``y_bands`` is not
+        shaped (7, n).
     """
-    from measure.bands import band_centers, filter_bands, make_bands
+    from measure.bands import filter_bands, make_bands
     from measure.decay import lundeby, onset_index
 
     h = check_signal(h, "h", ndim=(1,))
     fs = check_fs(fs)
-    wanted = band_centers("octave", 125.0, 8000.0)
     try:
         bands = make_bands(fs, "octave", 125.0, 8000.0)
     except ParameterError as err:
         raise ParameterError(f"the STI needs the octaves 125 Hz–8 kHz: {err}") from err
-    assert len(bands) == len(wanted)
     i0 = onset_index(h, fs) if onset is None else int(onset)
-    yb = filter_bands(h, fs, bands, mode="causal")
+    if y_bands is None:
+        yb = filter_bands(h, fs, bands, mode="causal")
+    else:
+        yb = np.asarray(y_bands, dtype=np.float64)
+        if yb.shape != (7, h.shape[0]):
+            raise ParameterError(f"y_bands has shape {yb.shape}; give the 7 octave-band "
+                                 f"signals 125 Hz–8 kHz of h, shape (7, {h.shape[0]})")
     out = np.empty((7, 14))
     flags = []
     for k, (band, y) in enumerate(zip(bands, yb, strict=True)):
@@ -382,7 +400,8 @@ def check_noise_levels(snr_db: float | np.ndarray | None = None,
 def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
                 snr_db: float | np.ndarray | None = None,
                 speech_spl_db: float | np.ndarray | None = None,
-                noise_spl_db: float | np.ndarray | None = None) -> StiResult:
+                noise_spl_db: float | np.ndarray | None = None,
+                y_bands: np.ndarray | None = None) -> StiResult:
     """Speech transmission index of an impulse response (IEC 60268-16:2020 indirect method).
 
     Parameters
@@ -402,6 +421,8 @@ def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
         listener, dB SPL (one number for all octaves, or seven). Applies the noise factor and
         the IEC 60268-16:2020 Annex A auditory masking and reception threshold
         (:func:`auditory_factor`). Give both or neither, and not with ``snr_db``.
+    y_bands : ndarray, shape (7, n), optional
+        The octave-band signals of ``h`` when the caller has them (see :func:`mtf_from_ir`).
 
     Returns
     -------
@@ -413,7 +434,7 @@ def sti_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
         If ``h`` is not a finite 1-D signal, ``fs`` is too low, or ``snr_db`` is malformed.
     """
     snr, ls, ln = check_noise_levels(snr_db, speech_spl_db, noise_spl_db)
-    m, flags = mtf_from_ir(h, fs, onset=onset)
+    m, flags = mtf_from_ir(h, fs, onset=onset, y_bands=y_bands)
     if ls is not None:
         m = m * auditory_factor(ls, ln)[:, None]
     elif snr is not None:

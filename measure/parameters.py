@@ -50,7 +50,14 @@ from typing import Any, Literal
 import numpy as np
 
 from measure._validate import check_fs, check_signal
-from measure.bands import Band, band_filter_sos, filter_bands, filter_order, make_bands
+from measure.bands import (
+    Band,
+    band_centers,
+    band_filter_sos,
+    filter_bands,
+    filter_order,
+    make_bands,
+)
 from measure.decay import DecayFigures, analyze_decay, lundeby, onset_index
 from measure.errors import ParameterError
 from measure.intelligibility import check_noise_levels, sti_from_ir
@@ -624,9 +631,11 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
 
 
 def _figures_for(h: np.ndarray, fs: int, bands: tuple[Band, ...], onset: int,
-                 direct: np.ndarray, direct_stop: int) -> list[BandFigures]:
+                 direct: np.ndarray, direct_stop: int
+                 ) -> tuple[list[BandFigures], dict[Band, np.ndarray]]:
+    """The figures of each band, and each band's causally filtered IR (for the STI)."""
     if not bands:
-        return []
+        return [], {}
     yr = filter_bands(h, fs, bands, mode="reversed")
     yc = filter_bands(h, fs, bands, mode="causal")
     # Filter the direct window far enough for the slowest band filter to ring out: the
@@ -638,7 +647,8 @@ def _figures_for(h: np.ndarray, fs: int, bands: tuple[Band, ...], onset: int,
     d = np.zeros(head)
     d[: direct.shape[0]] = direct[:head]
     yd = filter_bands(d, fs, bands, mode="causal")
-    return [_band_figures(b, yr[i], yc[i], yd[i], fs, onset) for i, b in enumerate(bands)]
+    figures = [_band_figures(b, yr[i], yc[i], yd[i], fs, onset) for i, b in enumerate(bands)]
+    return figures, dict(zip(bands, yc, strict=True))
 
 
 def _mean2(a: float | None, b: float | None) -> float | None:
@@ -739,7 +749,12 @@ def analyze_ir(h: np.ndarray, fs: int, *,
                              "long; give at least 100 ms (better: the whole decay)")
     onset = onset_index(h, fs)
     direct, direct_stop = _direct_part(h, fs, onset)
-    per_band = _figures_for(h, fs, band_set, onset, direct, direct_stop)
+    per_band, causal = _figures_for(h, fs, band_set, onset, direct, direct_stop)
+    # the STI's octaves are filtered already when they are among the analysed bands
+    sti_octaves = band_centers("octave", 125.0, 8000.0)
+    y_sti = (np.stack([causal[b] for b in sti_octaves])
+             if sti and all(b in causal for b in sti_octaves) else None)
+    del causal
     broadband = _band_figures(None, h, h, direct, fs, onset)
 
     def find(label: str) -> BandFigures | None:
@@ -754,7 +769,7 @@ def analyze_ir(h: np.ndarray, fs: int, *,
             extra = make_bands(fs, "octave", 500.0, 1000.0)
         except ParameterError:
             extra = ()
-        got = _figures_for(h, fs, extra, onset, direct, direct_stop)
+        got, _ = _figures_for(h, fs, extra, onset, direct, direct_stop)
         if len(got) == 2:
             b500, b1k = got
     singles = _single_numbers(b500, b1k)
@@ -764,7 +779,8 @@ def analyze_ir(h: np.ndarray, fs: int, *,
     if sti:
         try:
             sti_res = sti_from_ir(h, fs, onset=onset, snr_db=snr_db,
-                                  speech_spl_db=speech_spl_db, noise_spl_db=noise_spl_db)
+                                  speech_spl_db=speech_spl_db, noise_spl_db=noise_spl_db,
+                                  y_bands=y_sti)
         except ParameterError as err:
             flags.append(f"STI not computed: {err}")
     return RoomFigures(fs=fs, kind=kind, bands=tuple(per_band), broadband=broadband,

@@ -244,3 +244,17 @@ def test_levels_bad_inputs():
     with pytest.raises(ParameterError, match="noise_spl_db"):
         sti_from_ir(_decaying_tones(0.5, 1.0), FS, speech_spl_db=60.0,
                     noise_spl_db=[50.0, 40.0])
+
+
+def test_given_octave_signals_are_used_as_filtering_them_here_would_give():
+    # analyze_ir hands over the octaves it filtered already (y_bands); the STI must be the one
+    # computed from h alone (same filters, same signal: equal to float rounding, 1e-12).
+    from measure.bands import filter_bands, make_bands
+
+    x = _decaying_tones(1.0, 1.5)
+    yb = filter_bands(x, FS, make_bands(FS, "octave", 125, 8000), mode="causal")
+    own = sti_from_ir(x, FS)
+    given = sti_from_ir(x, FS, y_bands=yb)
+    assert given.mtf == pytest.approx(own.mtf, abs=1e-12) and given.sti == own.sti
+    with pytest.raises(ParameterError, match=r"y_bands has shape \(6, .*give the 7 octave"):
+        sti_from_ir(x, FS, y_bands=yb[1:])
