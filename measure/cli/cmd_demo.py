@@ -48,6 +48,7 @@ def run(args: argparse.Namespace) -> int:
     sweep_wav = audio_io.write_audio(root / "sweeps" / "demo-sweep.wav", sweep.program,
                                      sweep.fs, subtype="FLOAT")
     audio_io.write_json(audio_io.sidecar_path(sweep_wav), sweep.sidecar())
+    sweep_sha256 = audio_io.file_sha256(sweep_wav)  # one file, hashed once for every take
     captures = root / "captures"
     rows = []
     for i, t in enumerate(DEMO_TAKES):
@@ -60,7 +61,7 @@ def run(args: argparse.Namespace) -> int:
         take = session.save_take(captures, t.room.name, t.position, y, sweep.fs, {
             "source": "virtual (measure demo)", "building": BUILDING,
             "description": t.description, "sweep_file": str(sweep_wav),
-            "sweep_sha256": audio_io.file_sha256(sweep_wav), "distance_m": t.distance_m,
+            "sweep_sha256": sweep_sha256, "distance_m": t.distance_m,
             "virtual_equipment": {"latency_s": t.latency_s, "drift_ppm": t.drift_ppm,
                                   "hd2_percent": t.hd2_percent, "hd3_percent": t.hd3_percent,
                                   "noise_dbfs": t.noise_dbfs}})
@@ -68,7 +69,7 @@ def run(args: argparse.Namespace) -> int:
         ir_wav = root / "irs" / f"{t.room.name}-{t.position}.wav"
         audio_io.write_ir(ir_wav, ir, sweep=sweep, sources={
             "capture": str(take.wav), "capture_sha256": audio_io.file_sha256(take.wav),
-            "sweep": str(sweep_wav), "sweep_sha256": audio_io.file_sha256(sweep_wav)})
+            "sweep": str(sweep_wav), "sweep_sha256": sweep_sha256})
         stem = f"{t.room.name}-{t.position}"
         h = ir.h[0]
         figures = analyze_ir(h, ir.fs)
