@@ -301,14 +301,20 @@ def class1_deviation_db(band: Band, fs: int, sos: np.ndarray, *, dense: bool = T
     return f, delta, lo, hi
 
 
-def _sos_magnitude(sos: np.ndarray, f_hz: np.ndarray, fs: int) -> np.ndarray:
-    """|H(e^{jω})| of second-order sections (the same as scipy.signal.sosfreqz, vectorised)."""
+def _sos_response(sos: np.ndarray, f_hz: np.ndarray, fs: int) -> np.ndarray:
+    """H(e^{jω}) of second-order sections at ``f_hz`` (as scipy.signal.sosfreqz, vectorised
+    over all frequencies at once: the class 1 check evaluates it for every order tried)."""
     z1 = np.exp(-2j * np.pi * np.asarray(f_hz, dtype=float) / fs)
     z2 = z1 * z1
     s = np.asarray(sos)
     num = s[:, 0:1] + s[:, 1:2] * z1 + s[:, 2:3] * z2
     den = s[:, 3:4] + s[:, 4:5] * z1 + s[:, 5:6] * z2
-    return np.abs(np.prod(num / den, axis=0))
+    return np.prod(num / den, axis=0)
+
+
+def _sos_magnitude(sos: np.ndarray, f_hz: np.ndarray, fs: int) -> np.ndarray:
+    """|H(e^{jω})| of second-order sections (see :func:`_sos_response`)."""
+    return np.abs(_sos_response(sos, f_hz, fs))
 
 
 def _design(band: Band, fs: int, order: int) -> np.ndarray:
@@ -473,6 +479,7 @@ def filter_bands(h: np.ndarray, fs: int, bands: tuple[Band, ...] | list[Band], *
     out = np.empty((len(bands), h.shape[-1]), dtype=np.float64)
     src = h[::-1] if mode == "reversed" else h
     for i, band in enumerate(bands):
+        # np.array: a writable copy of the cached design; sosfilt refuses read-only arrays
         y = sosfilt(np.array(band_filter_sos(band, fs)), src)
         out[i] = y[::-1] if mode == "reversed" else y
     return out

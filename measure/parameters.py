@@ -153,15 +153,13 @@ def _filter_timing(kind: str, index: int, fs: int) -> tuple[float, float]:
     """(group delay at mid-band, 5–95 % energy spread of the impulse response), seconds."""
     from scipy.signal import sosfilt
 
-    from measure.bands import _make_band
+    from measure.bands import _make_band, _sos_response
 
     band = _make_band(kind, index)
-    sos = np.array(band_filter_sos(band, fs))
+    sos = np.array(band_filter_sos(band, fs))  # a writable copy: sosfilt refuses read-only
     # group delay: -dφ/dω at fm by a central difference of the unwrapped phase
     f = band.center_hz * np.array([1 - 1e-4, 1 + 1e-4])
-    z1 = np.exp(-2j * np.pi * f / fs)
-    hf = np.prod((sos[:, 0:1] + sos[:, 1:2] * z1 + sos[:, 2:3] * z1 * z1)
-                 / (sos[:, 3:4] + sos[:, 4:5] * z1 + sos[:, 5:6] * z1 * z1), axis=0)
+    hf = _sos_response(sos, f, fs)
     dphi = np.angle(hf[1] / hf[0])
     gd = -dphi / (2 * np.pi * (f[1] - f[0]))
     n = int(min(4 * fs, max(fs * 0.05, 10 * fs / band.bandwidth_hz)))
