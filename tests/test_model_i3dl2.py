@@ -34,8 +34,10 @@ def _synthetic(e_early: float, e_late: float, rng: np.random.Generator) -> np.nd
 def test_levels_and_delays_follow_the_energies(rng):
     # modeling.md §5.2: Room = 1000·lg((E_E+E_L)/E_D), Reflections = 1000·lg(E_E/(E_E+E_L)),
     # Reverb = 1000·lg(E_L/(E_E+E_L)), RoomHF = 0 for a white room effect (derived: every
-    # part white, so band shares cancel). Tolerance 30 mB (0.3 dB): the noise tail's energy
-    # in a band fluctuates by ~1/sqrt(B·T) ≈ 4 % (B ≈ 1.2 kHz LF band, T ≈ 0.6 s).
+    # part white, so band shares cancel). Tolerance 50 mB (0.5 dB, half the 1 dB level JND of
+    # ISO 3382-1 Table A.1): the noise tail's energy in a band fluctuates by ~1/sqrt(B·T) ≈ 4 %
+    # ≈ 17 mB (B ≈ 1.2 kHz LF band, T ≈ 0.6 s), so 50 mB is about 3 σ (measured worst over
+    # seeds 0-29: 37 mB, Reflections).
     e_e, e_l = 0.2, 0.4
     h = _synthetic(e_e, e_l, rng)
     v, clamped = measure_i3dl2(h, FS, t0_s=0.010, t1_s=0.015, tm_s=0.040, t60_lf_s=0.6,
