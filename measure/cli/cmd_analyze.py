@@ -61,7 +61,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
-    from measure.cli._common import channel_index, info, print_json
+    from measure.cli._common import channel_index, info, print_json, warn
     from measure.errors import ParameterError
     from measure.parameters import analyze_ir
 
@@ -90,7 +90,7 @@ def run(args: argparse.Namespace) -> int:
                 "the sweep's rate, or make a sweep at the capture's rate")
         capture = recover_ir(audio.x, sweep, channels=[ch])
         for w in capture.warnings:
-            info(f"warning: {w}")
+            warn(w)
         h = capture.h[0]
     else:
         h = audio.x[ch]
