@@ -103,14 +103,6 @@ def _paths(folder: Path, position: str, n: int) -> tuple[Path, Path]:
     return wav, sidecar_path(wav)
 
 
-def _readable(path: Path) -> None:
-    """Give a finished file the usual permissions (temporary files are created owner-only)."""
-    mask = os.umask(0)
-    os.umask(mask)
-    with contextlib.suppress(OSError):
-        os.chmod(path, 0o666 & ~mask)
-
-
 def _claim(tmp: Path, folder: Path, position: str, start: int) -> tuple[int, Path, Path]:
     """Give ``tmp`` the first free take name from ``start`` on, never replacing a file."""
     n = start
@@ -176,8 +168,8 @@ def save_take(captures: str | os.PathLike[str], room: str, position: str, y: np.
                              "permissions of --captures") from err
     tmp = folder / f".{position}.{uuid.uuid4().hex}.tmp.wav"
     try:
+        # written with the permissions of any new file (audio_io.atomic_writer sets them)
         write_audio(tmp, y, fs, subtype=subtype)  # type: ignore[arg-type]
-        _readable(tmp)
         n, wav, js = _claim(tmp, folder, position, next_take_number(captures, room, position))
     except OSError as err:
         raise AudioFileError(f"cannot write the take into {folder} ({err}); check free space and "
@@ -192,7 +184,6 @@ def save_take(captures: str | os.PathLike[str], room: str, position: str, y: np.
     side.update({k: v for k, v in sidecar.items() if k not in side})
     try:
         write_json(js, side)
-        _readable(js)
     except OSError as err:
         raise AudioFileError(
             f"the take {wav} is complete but its sidecar {js} could not be written ({err}); "
@@ -205,7 +196,6 @@ def update_sidecar(take: Take, **fields: Any) -> dict[str, Any]:
     side = read_json(take.json)
     side.update(fields)
     write_json(take.json, side)
-    _readable(take.json)
     return side
 
 
