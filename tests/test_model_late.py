@@ -137,8 +137,9 @@ def test_equal_decay_raw_octave_t30_within_5_percent():
 def test_absorbing_network_octave_t30_within_5_percent(t60):
     # Acceptance: with absorption, each octave's T30 of the rendered IR (125 Hz-4 kHz, analysed
     # by measure.bands + measure.decay, ISO 3382-1 A.2.2) is within 5 % (1 JND, ISO 3382-1
-    # Table A.1) of its target, after calibrate_decay (which is part of the product: the
-    # octave filters pass part of the neighbouring bands, see late.py).
+    # Table A.1) of its target, after calibrate_decay (the octave filters pass part of the
+    # neighbouring bands, see late.py; fit_model runs its own loop of this kind on the whole
+    # rendered model, calibrate_decay is the late part's alone).
     bands = make_bands(FS, "octave", 63.0, 4000.0)
     fc = tuple(b.center_hz for b in bands)
     # levels of a white spectrum (each band's energy proportional to its mask's bandwidth), as
