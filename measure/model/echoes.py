@@ -173,8 +173,9 @@ def find_echoes(h: ArrayLike, fs: int, *, n_echoes: int | None = None,
         background) to count as discrete. 15 dB is about 5.6 standard deviations of a
         Gaussian background, so diffuse fluctuations are almost never taken for echoes; the
         price is that reflections less than ~15 dB above a strong diffuse field are missed
-        (on the demo parking level, DRR −9 dB: 23 of 32 reflections found at 15 dB, 28 at
-        13.5 dB with about one false echo per response). Lower it for reverberant rooms.
+        (the demo parking level, DRR −9 dB, 4 reflections, ``room_ir`` seeds 0-7, searched to
+        100 ms: 23 of the 32 found at 15 dB with 5 false echoes in all, 28 at 13.5 dB with 9,
+        about one per response). Lower it for reverberant rooms.
     min_separation_s : float, > 0, s
         Smallest spacing between any two atoms (direct sound included).
     wavelet_pre_s, wavelet_post_s : float, > 0, s
