@@ -91,8 +91,9 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
     if p.is_dir():
         raise AudioFileError(f"{p} is a folder, not an audio file; give a WAV or FLAC file")
     try:
-        info = sf.info(str(p))
-        data, fs = sf.read(str(p), dtype="float64", always_2d=True)
+        with sf.SoundFile(str(p)) as f:  # opened once: format, rate and samples
+            subtype, fs = f.subtype, f.samplerate
+            data = f.read(dtype="float64", always_2d=True)
     except (RuntimeError, sf.LibsndfileError, OSError, ValueError) as err:
         raise AudioFileError(
             f"cannot read {p} as audio ({err}); give a WAV or FLAC file") from err
@@ -104,7 +105,7 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
         raise AudioFileError(
             f"{p} holds {n_bad} NaN or Inf samples; re-export it from the recorder as PCM or "
             "clean float")
-    return Audio(x=x, fs=int(fs), path=str(p), subtype=str(info.subtype))
+    return Audio(x=x, fs=int(fs), path=str(p), subtype=str(subtype))
 
 
 @contextlib.contextmanager
