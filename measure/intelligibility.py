@@ -10,8 +10,8 @@ for the 14 modulation frequencies F = 10^((n−2)/10) Hz, n = 0…13 (0.63 … 1
 the 7 octave bands 125 Hz … 8 kHz. Each m is turned into a transmission index
 TI = (SNR_app + 15)/30 with SNR_app = 10 lg(m/(1−m)) clipped to ±15 dB; MTI_k is the mean TI of
 band k and STI = Σ α_k MTI_k − Σ β_k √(MTI_k MTI_k+1) with the male weights of
-IEC 60268-16:2020 (Table A.x; α = 0.085, 0.127, 0.230, 0.233, 0.309, 0.224, 0.173;
-β = 0.085, 0.078, 0.065, 0.011, 0.047, 0.095).
+IEC 60268-16:2020 (α = 0.085, 0.127, 0.230, 0.233, 0.309, 0.224, 0.173;
+β = 0.085, 0.078, 0.065, 0.011, 0.047, 0.095; as quoted in measurement.md §6 [S]).
 
 Noise in the IR itself is handled like the decay analysis: each band is truncated at its
 Lundeby crosspoint and the rest of the decay is added analytically (the transform of the
@@ -86,10 +86,10 @@ MODULATION_FREQUENCIES_HZ.setflags(write=False)
 ALPHA_MALE: tuple[float, ...] = (0.085, 0.127, 0.230, 0.233, 0.309, 0.224, 0.173)
 #: Male redundancy factors β_k between adjacent octaves (IEC 60268-16:2020).
 BETA_MALE: tuple[float, ...] = (0.085, 0.078, 0.065, 0.011, 0.047, 0.095)
-#: Rating bands (ISO 9921 wording): lower limits of each qualification.
 #: Absolute speech reception threshold per octave 125 Hz … 8 kHz, dB SPL (IEC 60268-16:2020
 #: Table A.3; measurement.md §6 [S]).
 ART_DB: tuple[float, ...] = (46.0, 27.0, 12.0, 6.5, 7.5, 8.0, 12.0)
+#: Rating bands (ISO 9921 wording): lower limits of each qualification.
 RATING_BANDS: tuple[tuple[float, str], ...] = (
     (0.75, "excellent"), (0.60, "good"), (0.45, "fair"), (0.30, "poor"), (0.0, "bad"))
 

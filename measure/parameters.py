@@ -4,7 +4,8 @@
 with, per band and for the broadband IR,
 
 * EDT, T20, T30 (:mod:`measure.decay`, time-reversed band filtering) with the measurement
-  uncertainty of T20 and T30 from bandwidth and decay time (ISO 3382-2:2008 Annex A);
+  uncertainty of T20 and T30 from bandwidth and decay time (ISO 3382-2:2008 Annex A, formula
+  from memory: see :func:`t20_uncertainty_s`);
 * C50, C80, D50, centre time Ts (ISO 3382-1:2009 A.2.3–A.2.4) and the direct-to-reverberant
   ratio, from causally filtered bands;
 * the peak-to-noise ratio and flags saying why a figure is missing;
@@ -18,8 +19,8 @@ Energy sums
 All sums start at the ISO 3382-1 onset of the broadband IR. In a band the start is moved later
 by the band filter's group delay at mid-band, so that the 50/80 ms split falls at the same
 acoustic time in every band (a causal filter delays the whole band response by about that
-much; without the shift C80 in the 250 Hz octave would be biased by about 0.4 dB for
-T = 1.2 s — derived from dC80/dt). The late sums end at the band's Lundeby crosspoint, the mean
+much; without the shift C80 in the 250 Hz octave would be biased by about 0.3 dB for
+T = 1.2 s — derived: group delay 3.6 ms times dC80/dte = 83 dB/s of an exponential decay). The late sums end at the band's Lundeby crosspoint, the mean
 noise power is subtracted and the fitted exponential tail is added analytically, exactly as for
 the decay curve, so background noise in the IR does not lower C80 or raise Ts.
 
@@ -512,8 +513,8 @@ def _reversed_band_onset(y_rev: np.ndarray, onset: int, gd_s: float, fs: int) ->
 
 #: Largest |C50|, |C80| and |DRR| taken as a measurement, dB. A room's early and late parts
 #: differ by a few dB up to about 20 dB even close to the source (ISO 3382-1:2009 Table A.1
-#: lists C80 from −5 to +5 dB as the typical range for halls); beyond 60 dB the late sum is
-#: numerically empty, not measured (common practice for the bound).
+#: lists C80 from −5 to +5 dB as the typical range for halls, from memory); beyond 60 dB the
+#: late sum is numerically empty, not measured (common practice for the bound).
 PLAUSIBLE_ENERGY_RATIO_DB: float = 60.0
 #: Shortest decay time (EDT, T20, T30) taken as a room's, s: a 60 dB decay within 20 ms is
 #: the loudspeaker or the analysis, not a room (the smallest enclosed spaces measured, car

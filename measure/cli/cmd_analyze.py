@@ -11,8 +11,8 @@ DESCRIPTION = """\
 Analyse an impulse response, or a capture when --sweep names the sweep that was played (the
 impulse response is then recovered first: latency, clock drift and distortion are removed).
 
-Per octave (or third-octave) band: EDT, T20, T30 with their standard uncertainty
-(ISO 3382-2 Annex A), C50, C80, D50, centre time Ts, direct-to-reverberant ratio and the
+Per octave (or third-octave) band: EDT, T20 and T30 (T20/T30 with their standard uncertainty,
+ISO 3382-2 Annex A), C50, C80, D50, centre time Ts, direct-to-reverberant ratio and the
 peak-to-noise ratio; then the single numbers over the 500 Hz and 1 kHz octaves
 (ISO 3382-1) and the speech transmission index (IEC 60268-16:2020, indirect method).
 
