@@ -46,6 +46,7 @@ import numpy as np
 from measure._validate import check_fs
 from measure.model.late import (
     LateReverb,
+    analysis_octaves,
     half_spectrum_weights,
     nominal_delays_s,
     render_late,
@@ -148,7 +149,7 @@ def _band_energies(parts: list[np.ndarray], fs: int, f_lo: float, f_hi: float) -
 
 def measure_i3dl2(h: np.ndarray, fs: int, *, t0_s: float, t1_s: float | None,
                   tm_s: float | None, t60_lf_s: float, t60_hf_s: float,
-                  hf_reference_hz: float = 5000.0) -> tuple[dict, dict]:
+                  hf_reference_hz: float = DEFAULT_HF_REFERENCE_HZ) -> tuple[dict, dict]:
     """The §5.2 estimates from an impulse response whose key times are known.
 
     Returns
@@ -301,8 +302,7 @@ def _t30_at(h: np.ndarray, fs: int, bands, f_hz: float) -> float | None:
 
     lower = [b for b in bands if b.center_hz <= f_hz * 1.02]
     upper = [b for b in bands if b.center_hz >= f_hz / 1.02]
-    pick = [b for b in (lower[-1:] + upper[:1])]
-    pick = list({b.center_hz: b for b in pick}.values())
+    pick = list({b.center_hz: b for b in lower[-1:] + upper[:1]}.values())
     t = octave_t30_s(h, fs, pick)
     pts = [(math.log(b.center_hz), math.log(v)) for b, v in zip(pick, t, strict=True)
            if v is not None]
@@ -379,8 +379,7 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
     from measure.bands import make_bands
 
     bands = make_bands(fs, "octave")
-    lf_bands = [b for b in bands if any(abs(math.log2(b.center_hz / f)) < 0.1
-                                        for f in LF_OCTAVES_HZ)]
+    lf_bands = [b for b in analysis_octaves(LF_OCTAVES_HZ, fs) if b is not None]
     values = dict(target)
     residual: dict[str, float] = {}
     n_sec = seconds - t0

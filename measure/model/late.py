@@ -88,6 +88,7 @@ __all__ = [
     "white_levels_db",
     "calibrate_decay",
     "octave_t30_s",
+    "analysis_octaves",
     "make_network",
     "render_late_bands",
     "kept_bands",
@@ -740,13 +741,14 @@ def render_late(late: LateReverb, fs: int, n_samples: int) -> np.ndarray:
     return render_late_bands(late, fs, n_samples).sum(axis=0)
 
 
-def _analysis_bands(late: LateReverb, fs: int):
-    """The IEC octave bands of :mod:`measure.bands` matching the late part's band centres."""
+def analysis_octaves(centers_hz: Sequence[float], fs: int) -> list:
+    """The IEC octave bands of :mod:`measure.bands` at ``fs`` nearest ``centers_hz`` (within a
+    tenth of an octave), one per centre; None where ``fs`` carries no such band."""
     from measure.bands import make_bands
 
     bands = make_bands(fs, "octave")
     out = []
-    for f in late.band_centers_hz:
+    for f in centers_hz:
         match = [b for b in bands if abs(math.log2(b.center_hz / f)) < 0.1]
         out.append(match[0] if match else None)
     return out
@@ -801,7 +803,7 @@ def calibrate_decay(late: LateReverb, fs: int, target_t30_s: Sequence[float | No
     if len(target_t30_s) != len(late.t60_s):
         raise ParameterError(f"{len(target_t30_s)} targets for {len(late.t60_s)} bands; give one "
                              "per band (None to leave a band alone)")
-    bands = _analysis_bands(late, fs)
+    bands = analysis_octaves(late.band_centers_hz, fs)
     t60 = np.asarray(late.t60_s, dtype=np.float64)
     lo, hi = t60 / CALIBRATION_RANGE, t60 * CALIBRATION_RANGE
     measured: list[float | None] = [None] * t60.size
