@@ -155,12 +155,11 @@ def schroeder(h: np.ndarray, *, stop_index: int | None = None,
     edc = np.cumsum(e[::-1])[::-1] + compensation
     if not (edc[0] > 0):
         raise ParameterError("the impulse response has no energy after its onset")
-    # Noise subtraction can leave a few non-positive sums at the very end: hold the last
-    # positive value rather than produce NaN.
+    # Noise subtraction can leave a few non-positive sums at the very end: rather than
+    # produce NaN, the curve is made non-increasing (running minimum over the positive sums),
+    # which holds the last positive value over them.
     if noise_power and np.any(edc <= 0):
-        bad = edc <= 0
-        edc = np.where(bad, np.nan, edc)
-        edc = np.fmin.accumulate(np.where(np.isnan(edc), np.inf, edc))
+        edc = np.minimum.accumulate(np.where(edc <= 0, np.inf, edc))
     with np.errstate(divide="ignore"):
         return 10.0 * np.log10(edc / edc[0])
 
