@@ -66,6 +66,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import math
 from collections.abc import Iterator
@@ -638,7 +639,7 @@ def fit_coloration(h: ArrayLike, fs: int, *, order: int | None = None,
             raise FitError(f"the order-{col.order} fit produced a non-finite response; "
                            "try another order")
         lsd = log_spectral_distance(h_eval, resp, f_eval, f_lo_hz=lsd_lo, f_hi_hz=lsd_hi)
-        return _build(x, fs, lsd, method, f_lo_hz, f_hi_hz, smoothing_fraction)
+        return dataclasses.replace(col, lsd_db=float(lsd))
 
     if method == "warped_lp":
         def fit_wlp(n: int) -> Coloration:
@@ -718,7 +719,7 @@ def remap_coloration(coloration: Coloration, fs: int) -> Coloration:
     lo, hi = _lsd_band(min(fs, c.fs))
     lsd = log_spectral_distance(coloration_response(c, f_cmp), coloration_response(new, f_cmp),
                                 f_cmp, f_lo_hz=lo, f_hi_hz=hi, fraction=None)
-    return _build(x, fs, lsd, "remap", f_lo, f_hi, c.smoothing_fraction)
+    return dataclasses.replace(new, lsd_db=float(lsd))
 
 
 def _matched_z(roots: NDArray[np.complex128], ratio: float) -> NDArray[np.complex128]:
