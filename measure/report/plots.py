@@ -450,13 +450,14 @@ def _draw_band_decay(ax: Any, bf: Any, h: np.ndarray, fs: int, onset: int, *,
     ax.tick_params(labelsize=7)
 
 
+def _curve_end_s(curve_db: np.ndarray, fs: int) -> float:
+    """Time where a decay curve first falls below the panels' floor (its end if never), s."""
+    below = np.nonzero(curve_db < _DECAY_FLOOR_DB)[0]
+    return (below[0] if below.size else curve_db.size) / fs
+
+
 def _finish_decay_panels(panels: list[Any], bands: tuple[Any, ...], fs: int) -> None:
-    t_end = 0.1
-    for bf in bands:
-        c = np.asarray(bf.decay.edc_db)
-        if c.size:
-            below = np.nonzero(c < _DECAY_FLOOR_DB)[0]
-            t_end = max(t_end, (below[0] if below.size else c.size) / fs)
+    t_end = max([0.1, *(_curve_end_s(np.asarray(bf.decay.edc_db), fs) for bf in bands)])
     panels[0].set_xlim(0.0, t_end * 1.03)
     panels[0].set_ylim(_DECAY_FLOOR_DB, 3.0)
     found: dict[str, Any] = {}
@@ -640,9 +641,7 @@ def plot_model_fit(measured_figures: Any, modelled_figures: Any, report: Any, *,
                     idx = _decimate(c.size)
                     ax.plot(idx / measured_figures.fs, c[idx], color=colour, lw=1.1, ls=ls,
                             label=lab)
-                    below = np.nonzero(c < _DECAY_FLOOR_DB)[0]
-                    t_end = max(t_end, (below[0] if below.size else c.size)
-                                / measured_figures.fs)
+                    t_end = max(t_end, _curve_end_s(c, measured_figures.fs))
             ax.set_title(mb.band.name if mb.band is not None else mb.label, fontsize=9,
                          loc="left", pad=2)
             ax.grid(True, alpha=0.3)
