@@ -44,6 +44,7 @@ __all__ = [
     "play_and_record",
     "input_stats",
     "level_program",
+    "octaves_inside",
     "analyze_level",
     "judge_take",
 ]
@@ -533,9 +534,16 @@ def level_program(spec: Any) -> tuple[np.ndarray, Any, tuple[int, ...]]:
     return program, short, tuple(starts)
 
 
-#: Nominal octave centres (IEC 61260-1, base 10 exact midband 1000·10^(3k/10) Hz, nominal names).
-#: Nominal octave centres the level check and the take summary consider (IEC 61260-1).
+#: Nominal octave centres the level check and the take summary consider (IEC 61260-1 Annex E;
+#: the exact base-10 mid-bands are 1000·10^(3k/10) Hz).
 OCTAVE_CENTRES_HZ = (31.5, 63.0, 125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0, 16000.0)
+
+
+def octaves_inside(f1_hz: float, f2_hz: float) -> list[float]:
+    """The centres of :data:`OCTAVE_CENTRES_HZ` whose whole band (fc/√2 … fc·√2) lies in
+    [f1_hz, f2_hz]: the octaves a sweep over that range excites fully."""
+    return [fc for fc in OCTAVE_CENTRES_HZ
+            if fc / math.sqrt(2.0) >= f1_hz and fc * math.sqrt(2.0) <= f2_hz]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -677,9 +685,8 @@ def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[
     # The noise segment: the quiet start, minus a margin for the stream's start-up.
     noise = y[:, n_noise // 6: n_noise]
     peaks, noises, clips, pnrs, octs, found, warns = [], [], [], [], [], [], []
-    bands = [fc for fc in OCTAVE_CENTRES_HZ
-             if fc / math.sqrt(2.0) >= take_spec.f1_hz and fc * math.sqrt(2.0) <= take_spec.f2_hz
-             and fc * math.sqrt(2.0) < fs / 2]
+    bands = [fc for fc in octaves_inside(take_spec.f1_hz, take_spec.f2_hz)
+             if fc * math.sqrt(2.0) < fs / 2]
     n_fft_take = 1 << int(math.ceil(math.log2(take_spec.n_sweep + 1)))
     f_take = np.fft.rfftfreq(n_fft_take, 1.0 / fs)
     weights = {fc: _octave_power_response(fs, fc, f_take) ** 2 for fc in bands}

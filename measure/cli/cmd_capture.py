@@ -471,15 +471,11 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
 def room_figures(ir: Any, sweep: Any) -> list[dict[str, Any]]:
     """ISO 3382-1 figures of each recovered IR (measure.parameters.analyze_ir), octave bands
     inside the sweep's range; a channel whose figures cannot be computed gets its reason."""
-    import math
-
-    from measure.capture import OCTAVE_CENTRES_HZ
+    from measure.capture import octaves_inside
     from measure.errors import MeasureError
     from measure.parameters import analyze_ir
 
-    spec = sweep.spec
-    inside = [fc for fc in OCTAVE_CENTRES_HZ
-              if fc / math.sqrt(2.0) >= spec.f1_hz and fc * math.sqrt(2.0) <= spec.f2_hz]
+    inside = octaves_inside(sweep.spec.f1_hz, sweep.spec.f2_hz)
     out: list[dict[str, Any]] = []
     for k, row in enumerate(ir.channels):
         entry: dict[str, Any] = {"file_channel": row + 1}
