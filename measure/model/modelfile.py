@@ -210,11 +210,13 @@ def model_from_dict(d: Any) -> RoomModel:
         ech = []
         for i, e in enumerate(echoes):
             if not isinstance(e, dict):
-                raise ParameterError(f"echoes[{i}] in the model file is not an object")
+                raise ParameterError(f"echoes[{i}] in the model file is not an object with "
+                                     "delay_s and gain; correct it or re-fit the model")
             ech.append((_num(e, "delay_s", f"echoes[{i}]"), _num(e, "gain", f"echoes[{i}]")))
         fit_fs = d.get("fit_fs")
         if isinstance(fit_fs, bool) or not isinstance(fit_fs, (int, float)):
-            raise ParameterError(f"fit_fs={fit_fs!r} in the model file must be a sample rate in Hz")
+            raise ParameterError(f"fit_fs={fit_fs!r} in the model file must be a sample rate in "
+                                 "Hz (e.g. 48000); correct it or re-fit the model")
         mix = d.get("mixing_time_s")
         return RoomModel(
             fit_fs=int(fit_fs) if float(fit_fs) == int(fit_fs) else fit_fs,
