@@ -69,6 +69,10 @@ def test_model_is_a_few_hundred_numbers():
     (lambda d: d["echoes"].append({"delay_s": -0.001, "gain": 0.1}), "echo"),
     (lambda d: d["late"]["envelope_db"][0].append(3.0), "envelope of band 0"),
     (lambda d: d.update(late=[]), "'late'"),
+    (lambda d: d.update(fit_fs=float("inf")), "fit_fs"),
+    (lambda d: d.update(fit_fs=float("nan")), "fit_fs"),
+    (lambda d: d.update(fit_fs="48k"), "fit_fs"),
+    (lambda d: d.update(fit_fs=44100.5), "whole number"),
 ])
 def test_invalid_files_are_refused_with_the_field_named(mutate, match):
     d = json.loads(json.dumps(_model().to_dict()))

@@ -213,13 +213,10 @@ def model_from_dict(d: Any) -> RoomModel:
                 raise ParameterError(f"echoes[{i}] in the model file is not an object with "
                                      "delay_s and gain; correct it or re-fit the model")
             ech.append((_num(e, "delay_s", f"echoes[{i}]"), _num(e, "gain", f"echoes[{i}]")))
-        fit_fs = d.get("fit_fs")
-        if isinstance(fit_fs, bool) or not isinstance(fit_fs, (int, float)):
-            raise ParameterError(f"fit_fs={fit_fs!r} in the model file must be a sample rate in "
-                                 "Hz (e.g. 48000); correct it or re-fit the model")
+        fit_fs = _num(d, "fit_fs", "model")  # a whole number of Hz: checked by RoomModel
         mix = d.get("mixing_time_s")
         return RoomModel(
-            fit_fs=int(fit_fs) if float(fit_fs) == int(fit_fs) else fit_fs,
+            fit_fs=int(fit_fs) if fit_fs == int(fit_fs) else fit_fs,
             direct_delay_s=_num(direct, "delay_s", "direct"),
             direct_gain=_num(direct, "gain", "direct"),
             coloration=coloration, echoes=tuple(ech), late=late,
