@@ -27,32 +27,35 @@ ROOT = Path(__file__).resolve().parents[1]
 FS = 48000
 N_RUNS = 5
 
-FLOOR = r"""
-import json, sys
+#: The irreducible work, as a function: run in a fresh process (FLOOR_SCRIPT) and in this one.
+FLOOR_SRC = r"""
+import json
 import numpy as np
 import soundfile as sf
 from scipy.fft import irfft, next_fast_len, rfft
 from scipy.signal import butter, sosfiltfilt
 from measure.sweep import inverse_spectrum, spec_from_dict
 
-capture, sweep_wav, sweep_json = sys.argv[1:4]
-y, fs = sf.read(capture, dtype="float64", always_2d=True)
-x, _ = sf.read(sweep_wav, dtype="float64", always_2d=True)
-spec = spec_from_dict(json.load(open(sweep_json)))
-y = y[:, 0]
-n = next_fast_len(y.size + spec.n_sweep)
-h = irfft(rfft(y, n) * inverse_spectrum(spec, n), n)
-ir = h[spec.n_lead: spec.n_lead + 3 * fs]
-G = 10 ** 0.3
-total = 0.0
-for x10 in range(-13, 11):  # third octaves 50 Hz ... 10 kHz
-    fm = 1000 * 10 ** (x10 / 10)
-    sos = butter(3, [fm / G ** (1 / 6), fm * G ** (1 / 6)], "bandpass", fs=fs, output="sos")
-    yb = sosfiltfilt(sos, ir)
-    edc = np.cumsum((yb * yb)[::-1])[::-1]
-    total += float(edc[0])
-print(total)
+
+def floor(capture, sweep_wav, sweep_json):
+    y, fs = sf.read(capture, dtype="float64", always_2d=True)
+    sf.read(sweep_wav, dtype="float64", always_2d=True)
+    with open(sweep_json) as fh:
+        spec = spec_from_dict(json.load(fh))
+    n = next_fast_len(y.shape[0] + spec.n_sweep)
+    h = irfft(rfft(y[:, 0], n) * inverse_spectrum(spec, n), n)
+    ir = h[spec.n_lead: spec.n_lead + 3 * fs]
+    g = 10 ** 0.3
+    total = 0.0
+    for x10 in range(-13, 11):  # third octaves 50 Hz ... 10 kHz
+        fm = 1000 * 10 ** (x10 / 10)
+        sos = butter(3, [fm / g ** (1 / 6), fm * g ** (1 / 6)], "bandpass", fs=fs,
+                     output="sos")
+        yb = sosfiltfilt(sos, ir)
+        total += float(np.cumsum((yb * yb)[::-1])[-1])
+    return total
 """
+FLOOR_SCRIPT = FLOOR_SRC + "\nimport sys\nprint(floor(*sys.argv[1:4]))\n"
 
 
 def _best_of(cmd: list[str], n: int, env: dict[str, str]) -> float:
@@ -97,32 +100,15 @@ def _make_inputs(folder: Path) -> tuple[Path, Path]:
 
 def _in_process(capture: Path, sweep_wav: Path) -> tuple[float, float]:
     """The same two jobs inside this process, imports already done (best of N_RUNS)."""
-    import json
-
-    import numpy as np
-    import soundfile as sf
-    from scipy.fft import irfft, next_fast_len, rfft
-    from scipy.signal import butter, sosfiltfilt
-
     from measure import audio_io
     from measure.deconvolve import recover_ir
     from measure.parameters import analyze_ir
-    from measure.sweep import inverse_spectrum, spec_from_dict
+
+    ns: dict = {}
+    exec(FLOOR_SRC, ns)  # the very function the FLOOR_SCRIPT process runs
 
     def floor() -> None:
-        y, fs = sf.read(str(capture), dtype="float64", always_2d=True)
-        sf.read(str(sweep_wav), dtype="float64", always_2d=True)
-        spec = spec_from_dict(json.loads(sweep_wav.with_suffix(".json").read_text()))
-        n = next_fast_len(y.shape[0] + spec.n_sweep)
-        h = irfft(rfft(y[:, 0], n) * inverse_spectrum(spec, n), n)
-        ir = h[spec.n_lead: spec.n_lead + 3 * fs]
-        g = 10 ** 0.3
-        for x10 in range(-13, 11):
-            fm = 1000 * 10 ** (x10 / 10)
-            sos = butter(3, [fm / g ** (1 / 6), fm * g ** (1 / 6)], "bandpass", fs=fs,
-                         output="sos")
-            yb = sosfiltfilt(sos, ir)
-            np.cumsum((yb * yb)[::-1])
+        ns["floor"](str(capture), str(sweep_wav), str(sweep_wav.with_suffix(".json")))
 
     def analyze() -> None:
         audio = audio_io.read_audio(capture)
@@ -149,7 +135,7 @@ def main() -> int:
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         capture, sweep_wav = _make_inputs(folder)
-        floor = [py, "-c", FLOOR, str(capture), str(sweep_wav), str(folder / "sweep.json")]
+        floor = [py, "-c", FLOOR_SCRIPT, str(capture), str(sweep_wav), str(folder / "sweep.json")]
         analyze = [py, "-m", "measure", "analyze", str(capture), "--sweep", str(sweep_wav),
                    "--bands", "third", "--json"]
         helpcmd = [py, "-m", "measure", "--help"]
