@@ -218,15 +218,15 @@ def virtual_take(program: np.ndarray, fs: int, h: np.ndarray, *, latency_s: floa
     z = fftconvolve(x, h)
     ratio = 1.0 + drift_ppm * 1e-6
     n_out = int(math.floor((x.size + latency_s * fs + extra_s * fs) * ratio))
-    # Recorder sample k is taken at player time k/ratio; the chain delays everything by latency.
-    positions = np.arange(n_out) / ratio - latency_s * fs
     if drift_ppm == 0.0 and float(latency_s * fs).is_integer():
         lag = int(latency_s * fs)
         y = np.zeros(n_out)
         m = min(n_out - lag, z.size)
         y[lag:lag + m] = z[:m]
     else:
-        y = interpolate(z, positions)
+        # Recorder sample k is taken at player time k/ratio; the chain delays everything by
+        # the latency.
+        y = interpolate(z, np.arange(n_out) / ratio - latency_s * fs)
     if noise_dbfs is not None:
         rng = np.random.default_rng(seed)
         y = y + 10.0 ** (noise_dbfs / 20.0) * rng.standard_normal(y.size)
