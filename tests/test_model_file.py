@@ -73,6 +73,9 @@ def test_model_is_a_few_hundred_numbers():
     (lambda d: d.update(fit_fs=float("nan")), "fit_fs"),
     (lambda d: d.update(fit_fs="48k"), "fit_fs"),
     (lambda d: d.update(fit_fs=44100.5), "whole number"),
+    (lambda d: d["coloration"]["sos"][0].__setitem__(1, float("inf")), "finite"),
+    (lambda d: d["coloration"]["poles"].__setitem__(0, [1.5, 0.0]), "unstable"),
+    (lambda d: d["coloration"]["sos"][0].__setitem__(5, 1.5), "unstable"),
 ])
 def test_invalid_files_are_refused_with_the_field_named(mutate, match):
     d = json.loads(json.dumps(_model().to_dict()))

@@ -194,6 +194,13 @@ def coloration_from_dict(d: dict[str, Any]) -> Coloration:
         zeros = np.array([complex(a, b) for a, b in d["zeros"]], dtype=np.complex128)
         poles = np.array([complex(a, b) for a, b in d["poles"]], dtype=np.complex128)
         sos = np.array(d["sos"], dtype=np.float64).reshape(-1, 6)
+        if not (np.all(np.isfinite(sos)) and np.all(np.isfinite(zeros))
+                and np.all(np.isfinite(poles))):
+            raise ParameterError("coloration: sos, zeros and poles must be finite numbers; "
+                                 "re-fit the model")
+        if np.any(np.abs(poles) >= 1.0) or np.any(np.abs(signal.sos2zpk(sos)[1]) >= 1.0):
+            raise ParameterError("coloration: a pole lies on or outside the unit circle, so the "
+                                 "filter is unstable; re-fit the model")
         frac = d["smoothing_fraction"]
         return Coloration(sos=sos, fs=fs, order=int(d["order"]), zeros=zeros, poles=poles,
                           gain=float(d["gain"]), lsd_db=float(d["lsd_db"]),
