@@ -144,17 +144,22 @@ def schroeder(h: np.ndarray, *, stop_index: int | None = None,
     h = check_signal(h, "h", ndim=(1,))
     n = h.shape[-1] if stop_index is None else int(stop_index)
     if not 0 < n <= h.shape[-1]:
-        raise ParameterError(f"stop_index={stop_index} must be in 1..{h.shape[-1]}")
+        raise ParameterError(f"stop_index={stop_index} must be in 1..{h.shape[-1]} (a sample "
+                             "of h); give a truncation point inside the signal")
     if not (compensation >= 0) or not math.isfinite(compensation):
-        raise ParameterError(f"compensation={compensation!r} must be finite and >= 0")
+        raise ParameterError(f"compensation={compensation!r} must be finite and >= 0; give "
+                             "the tail energy after stop_index, or 0 for none")
     if not (noise_power >= 0) or not math.isfinite(noise_power):
-        raise ParameterError(f"noise_power={noise_power!r} must be finite and >= 0")
+        raise ParameterError(f"noise_power={noise_power!r} must be finite and >= 0; give the "
+                             "mean h**2 of the noise, or 0 to subtract nothing")
     e = h[:n] * h[:n]
     if noise_power:
         e = e - noise_power
     edc = np.cumsum(e[::-1])[::-1] + compensation
     if not (edc[0] > 0):
-        raise ParameterError("the impulse response has no energy after its onset")
+        raise ParameterError("the impulse response has no energy after its onset (or less "
+                             "than the noise subtracted); check that the onset lies before "
+                             "the direct sound and that the IR is not silent")
     # Noise subtraction can leave a few non-positive sums at the very end: rather than
     # produce NaN, the curve is made non-increasing (running minimum over the positive sums),
     # which holds the last positive value over them.
@@ -574,7 +579,9 @@ def analyze_decay(h_band: np.ndarray, fs: int, *, onset: int | None = None,
     check_choice(filter_mode, "filter_mode", ("causal", "reversed"))
     i0 = onset_index(h, fs) if onset is None else int(onset)
     if not 0 <= i0 < h.shape[0] - 1:
-        raise ParameterError(f"onset={onset} is outside the signal of {h.shape[0]} samples")
+        raise ParameterError(f"onset={onset} is outside the signal of {h.shape[0]} samples; "
+                             f"give an index from 0 to {h.shape[0] - 2}, normally "
+                             "onset_index() of the broadband IR")
     seg = h[i0:]
     where = f"{label}: " if label else ""
     nf = lundeby(seg, fs)

@@ -290,7 +290,9 @@ def mtf_from_band(h_band: np.ndarray, fs: int, *, stop_index: int | None = None,
         num = num + a1 * np.exp(-1j * w * t1) / (1.0 - r * np.exp(-1j * w / fs))
         den += a1 / (1.0 - r)
     if not (den > 0):
-        raise ParameterError("the band holds no energy; the STI cannot be computed")
+        raise ParameterError("the band-filtered IR holds no energy, so its modulation transfer "
+                             "is undefined; the STI needs an IR with sound in every octave "
+                             "125 Hz–8 kHz")
     return np.minimum(np.abs(num) / den, 1.0)
 
 
