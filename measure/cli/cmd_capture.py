@@ -109,13 +109,6 @@ def parse_channels(text: str | None, what: str) -> list[int]:
     return out
 
 
-def load_sweep(path: str) -> Any:
-    """Read a sweep file and its sidecar (see measure.audio_io.read_sweep)."""
-    from measure import audio_io
-
-    return audio_io.read_sweep(path)
-
-
 def setup_devices(args: argparse.Namespace) -> dict[str, Any]:
     """Resolve devices and channel maps from the shared options (raises before anything plays)."""
     from measure.capture import list_devices, resolve_device
@@ -324,13 +317,13 @@ def _run(args: argparse.Namespace, stage: dict[str, Any]) -> int:
     from pathlib import Path
 
     from measure import session
-    from measure.audio_io import file_sha256
+    from measure.audio_io import file_sha256, read_sweep
     from measure.capture import input_stats, play_and_record
     from measure.cli._common import info, print_json
 
     room = session.check_label(args.room, "room")
     position = session.check_label(args.position, "position")
-    sweep = load_sweep(args.sweep)
+    sweep = read_sweep(args.sweep)
     setup = setup_devices(args)
     labels = channel_labels(setup["input_channels"], setup["loopback"])
     from measure.capture import check_rate

@@ -50,7 +50,7 @@ def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from measure import session
-    from measure.audio_io import file_sha256, read_audio, read_json, sidecar_path
+    from measure.audio_io import file_sha256, read_audio, read_json, read_sweep, sidecar_path
     from measure.capture import input_stats
     from measure.cli import cmd_capture as cc
     from measure.cli._common import channel_index, info, print_json
@@ -62,7 +62,7 @@ def run(args: argparse.Namespace) -> int:
     audio = read_audio(src)
     sweep = None
     if args.sweep is not None:
-        sweep = cc.load_sweep(args.sweep)
+        sweep = read_sweep(args.sweep)
         if sweep.fs != audio.fs:
             raise ParameterError(
                 f"{src} is at {audio.fs} Hz but the sweep {args.sweep} is at {sweep.fs} Hz; "

@@ -29,12 +29,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from measure.audio_io import read_sweep
     from measure.capture import check_rate
     from measure.cli import cmd_capture as cc
     from measure.cli._common import info, print_json
     from measure.errors import DeviceError
 
-    sweep = cc.load_sweep(args.sweep)
+    sweep = read_sweep(args.sweep)
     setup = cc.setup_devices(args)
     labels = cc.channel_labels(setup["input_channels"], setup["loopback"])
     check_rate(setup["input_device"], setup["output_device"], sweep.fs,
