@@ -61,7 +61,7 @@ from measure.bands import (
 )
 from measure.decay import DecayFigures, analyze_decay, lundeby, onset_index
 from measure.errors import ParameterError
-from measure.intelligibility import check_noise_levels, sti_from_ir
+from measure.intelligibility import StiResult, check_noise_levels, sti_from_ir
 
 __all__ = [
     "JND_EDT_RELATIVE",
@@ -429,7 +429,7 @@ class RoomFigures:
     bands : tuple of BandFigures
     broadband : BandFigures
     single_numbers : SingleNumbers
-    sti : StiResult or None
+    sti : measure.intelligibility.StiResult or None
         None when it could not be computed (``flags`` says why).
     onset_index : int
         ISO 3382-1 onset of the broadband IR.
@@ -442,7 +442,7 @@ class RoomFigures:
     bands: tuple[BandFigures, ...]
     broadband: BandFigures
     single_numbers: SingleNumbers
-    sti: Any
+    sti: StiResult | None
     onset_index: int
     flags: tuple[str, ...] = ()
 
@@ -591,9 +591,10 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
         start = onset
         order = None
         label = "broadband"
+        spread = 0.0
     else:
         label = band.name
-        gd, _ = _filter_timing(band.kind, band.index, fs)
+        gd, spread = _filter_timing(band.kind, band.index, fs)
         decay = analyze_decay(y_rev, fs, onset=_reversed_band_onset(y_rev, onset, gd, fs),
                               bandwidth_hz=band.bandwidth_hz, filter_mode="reversed",
                               label=label)
@@ -602,11 +603,9 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
     energy = energy_figures(y_causal, fs, start=start, y_direct=y_direct, label=label,
                             first=max(onset - int(round(0.001 * fs)), 0))
     flags = list(decay.flags) + list(energy.flags)
-    if band is not None:
-        _, spread = _filter_timing(band.kind, band.index, fs)
-        if spread > 0.025:
-            flags.append(f"{label}: the band filter spreads a click over {spread * 1000:.0f} ms, "
-                         "comparable to the 50 ms split; C50 and D50 blur here")
+    if spread > 0.025:
+        flags.append(f"{label}: the band filter spreads a click over {spread * 1000:.0f} ms, "
+                     "comparable to the 50 ms split; C50 and D50 blur here")
     v: dict[str, float | None] = {
         "edt_s": decay.edt_s, "t20_s": decay.t20_s, "t30_s": decay.t30_s,
         "c50_db": energy.c50_db, "c80_db": energy.c80_db, "d50": energy.d50,
