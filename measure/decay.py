@@ -226,22 +226,17 @@ def _blocks(e: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
     return avg, centres
 
 
-def _linfit(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float]:
-    """Least squares y = a + b x; returns (a, b, r²)."""
+def _linfit(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Least squares y = a + b x; returns (a, b)."""
     n = x.shape[0]
     xm = x.mean()
     ym = y.mean()
     dx = x - xm
-    dy = y - ym
     sxx = float(dx @ dx)
-    syy = float(dy @ dy)
-    sxy = float(dx @ dy)
     if n < 2 or sxx <= 0:
-        return float(ym), 0.0, 0.0
-    b = sxy / sxx
-    a = float(ym) - b * float(xm)
-    r2 = (sxy * sxy) / (sxx * syy) if syy > 0 else 1.0
-    return a, b, r2
+        return float(ym), 0.0
+    b = float(dx @ (y - ym)) / sxx
+    return float(ym) - b * float(xm), b
 
 
 def _db(x: np.ndarray | float) -> np.ndarray | float:
@@ -314,7 +309,7 @@ def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations
     i_end = ip + (int(below[0]) if below.size else lvl.shape[0] - ip)
     if i_end - ip < 2:
         i_end = min(lvl.shape[0], ip + 2)
-    a, b, _ = _linfit(centres[ip:i_end] / fs, lvl[ip:i_end])
+    a, b = _linfit(centres[ip:i_end] / fs, lvl[ip:i_end])
     if not (b < 0):
         return NoiseFloor(False, n, 0.0, noise, None, float(_db(peak_e / noise)), True, False,
                           0, "the band does not decay")
@@ -322,7 +317,7 @@ def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations
     # Is there a noise floor at all? Compare the tail's slope with the early slope.
     tail_blocks = centres >= tail_start
     if np.count_nonzero(tail_blocks) >= 3:
-        _, b_tail, _ = _linfit(centres[tail_blocks] / fs, lvl[tail_blocks])
+        _, b_tail = _linfit(centres[tail_blocks] / fs, lvl[tail_blocks])
         tail_drop_db = -b_tail * (n - tail_start) / fs
     else:
         b_tail, tail_drop_db = 0.0, 0.0
@@ -330,7 +325,7 @@ def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations
         # Still decaying at the end: no floor. Extrapolate the last 20 dB of the decay.
         end_db = float(lvl[-1])
         sel = (np.arange(lvl.shape[0]) >= ip) & (lvl <= end_db + 20.0)
-        a2, b2, _ = _linfit(centres[sel] / fs, lvl[sel]) if np.count_nonzero(sel) >= 3 else (a, b, 0)
+        a2, b2 = _linfit(centres[sel] / fs, lvl[sel]) if np.count_nonzero(sel) >= 3 else (a, b)
         if not (b2 < 0):
             a2, b2 = a, b
         comp = _tail_sum(a2, b2, n, fs)
@@ -363,7 +358,7 @@ def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations
             # Too little decay above the noise for a late fit: keep the previous line.
             break
         # fit the decay itself: the blocks' mean noise power removed
-        a_new, b_new, _ = _linfit(centres[sel] / fs, _db(avg[sel] - noise))
+        a_new, b_new = _linfit(centres[sel] / fs, _db(avg[sel] - noise))
         if not (b_new < 0):
             break
         a_late, b_late = a_new, b_new
