@@ -104,7 +104,7 @@ class RoomModel:
     i3dl2: dict | None = None
 
     def __post_init__(self) -> None:
-        check_fs(self.fit_fs)
+        object.__setattr__(self, "fit_fs", check_fs(self.fit_fs))  # 48000.0 -> 48000
         if not (self.direct_delay_s >= 0) or not math.isfinite(self.direct_delay_s):
             raise ParameterError(f"direct delay {self.direct_delay_s!r} s must be >= 0 and finite")
         if not math.isfinite(self.direct_gain):
@@ -213,10 +213,9 @@ def model_from_dict(d: Any) -> RoomModel:
                 raise ParameterError(f"echoes[{i}] in the model file is not an object with "
                                      "delay_s and gain; correct it or re-fit the model")
             ech.append((_num(e, "delay_s", f"echoes[{i}]"), _num(e, "gain", f"echoes[{i}]")))
-        fit_fs = _num(d, "fit_fs", "model")  # a whole number of Hz: checked by RoomModel
         mix = d.get("mixing_time_s")
         return RoomModel(
-            fit_fs=int(fit_fs) if fit_fs == int(fit_fs) else fit_fs,
+            fit_fs=_num(d, "fit_fs", "model"),  # a whole number of Hz: checked by RoomModel
             direct_delay_s=_num(direct, "delay_s", "direct"),
             direct_gain=_num(direct, "gain", "direct"),
             coloration=coloration, echoes=tuple(ech), late=late,

@@ -100,7 +100,7 @@ def _late_at(model: RoomModel, fs: int, n_samples: int) -> np.ndarray:
 
     from scipy.signal import resample_poly
 
-    fit_fs = int(round(float(model.fit_fs)))
+    fit_fs = model.fit_fs
     if fit_fs == fs:
         return render_late(model.late, fs, n_samples)
     n_fit = int(np.ceil(n_samples * fit_fs / fs)) + 16
