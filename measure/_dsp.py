@@ -7,8 +7,9 @@ import functools
 import numpy as np
 
 #: Half-width of the interpolation kernel in samples, and its Kaiser window's beta. With 32
-#: taps a side and beta = 9 the kernel's stop-band is below -80 dB and its pass band is flat to
-#: within 0.01 dB up to 0.9 of Nyquist (checked in tests/test_dsp.py against scipy).
+#: taps a side and beta = 9 the kernel's stop band is below -80 dB beyond 1.1 × Nyquist
+#: (measured -91 dB) and its pass band is flat to within 0.01 dB up to 0.9 of Nyquist
+#: (measured 0.0005 dB); checked with scipy.signal.freqz in tests/test_dsp.py.
 HALF_WIDTH = 32
 KAISER_BETA = 9.0
 
