@@ -18,12 +18,17 @@ KAISER_BETA = 9.0
 TABLE_STEPS = 2048
 
 
+def _kaiser_sinc(d: np.ndarray, half_width: int) -> np.ndarray:
+    """The kernel at distances ``d`` (samples): sinc(d) under a Kaiser window reaching ±half_width."""
+    w = np.i0(KAISER_BETA * np.sqrt(np.clip(1.0 - (d / half_width) ** 2, 0.0, 1.0)))
+    return np.sinc(d) * w / np.i0(KAISER_BETA)
+
+
 @functools.lru_cache(maxsize=4)
 def _kernel_table(half_width: int) -> np.ndarray:
-    """Kaiser-windowed sinc tabulated at 1/TABLE_STEPS-sample steps over ±half_width."""
+    """The kernel tabulated at 1/TABLE_STEPS-sample steps over ±half_width."""
     d = np.arange(-half_width * TABLE_STEPS, half_width * TABLE_STEPS + 2) / TABLE_STEPS
-    w = np.i0(KAISER_BETA * np.sqrt(np.clip(1.0 - (d / half_width) ** 2, 0.0, 1.0)))
-    table = np.sinc(d) * w / np.i0(KAISER_BETA)
+    table = _kaiser_sinc(d, half_width)
     table.setflags(write=False)
     return table
 
@@ -82,10 +87,8 @@ def interpolate(x: np.ndarray, positions: np.ndarray, *, half_width: int = HALF_
 
 def fractional_impulse(n: int, position: float, *, half_width: int = HALF_WIDTH) -> np.ndarray:
     """A unit band-limited impulse of length ``n`` centred at fractional index ``position``."""
-    taps = np.arange(n, dtype=np.float64)
-    dist = taps - position
-    w = np.i0(KAISER_BETA * np.sqrt(np.clip(1.0 - (dist / half_width) ** 2, 0.0, 1.0)))
-    return np.where(np.abs(dist) < half_width, np.sinc(dist) * w / np.i0(KAISER_BETA), 0.0)
+    dist = np.arange(n, dtype=np.float64) - position
+    return np.where(np.abs(dist) < half_width, _kaiser_sinc(dist, half_width), 0.0)
 
 
 def parabolic_peak(v: np.ndarray, i: int) -> float:
