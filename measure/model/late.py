@@ -61,6 +61,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -550,9 +551,7 @@ class LateReverb:
 
     def replace(self, **changes) -> LateReverb:
         """A copy with some fields changed."""
-        d = {k: getattr(self, k) for k in self.__slots__}
-        d.update(changes)
-        return LateReverb(**d)
+        return dataclasses.replace(self, **changes)
 
     def to_dict(self) -> dict:
         return {

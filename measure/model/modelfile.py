@@ -50,6 +50,7 @@ File layout (format ``measure.room-model``, version 1)
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -119,9 +120,7 @@ class RoomModel:
 
     def replace(self, **changes: Any) -> RoomModel:
         """A copy with some fields changed (validated again)."""
-        d = {k: getattr(self, k) for k in self.__slots__}
-        d.update(changes)
-        return RoomModel(**d)
+        return dataclasses.replace(self, **changes)
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON object of the model file (module notes)."""
