@@ -228,6 +228,13 @@ def band_centers(kind: BandKind, f_lo_hz: float, f_hi_hz: float) -> tuple[Band, 
     return tuple(out)
 
 
+def _formula9(kind: str, om_oct: np.ndarray) -> np.ndarray:
+    """Octave breakpoints Ω_oct moved to a 1/b-octave band (IEC 61260-1:2014 Formula 9)."""
+    b = _b(kind)
+    r = (G ** (1.0 / (2 * b)) - 1.0) / (G ** 0.5 - 1.0)
+    return 1.0 + r * (np.asarray(om_oct, dtype=float) - 1.0)
+
+
 def class1_limits_db(band: Band, f_hz: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Class 1 acceptance limits on relative attenuation at frequencies ``f_hz``.
 
@@ -242,11 +249,7 @@ def class1_limits_db(band: Band, f_hz: np.ndarray) -> tuple[np.ndarray, np.ndarr
     (min_db, max_db) : arrays shaped like ``f_hz``
         Allowed range of ``A(f) - A(fm)`` in dB (positive = more attenuation); max may be inf.
     """
-    b = _b(band.kind)
-    r = (G ** (1.0 / (2 * b)) - 1.0) / (G ** 0.5 - 1.0)
-    om_oct = np.array([G ** e for e, _, _ in _CLASS1_TABLE])
-    om_b = 1.0 + r * (om_oct - 1.0)
-    lg_b = np.log10(om_b)
+    lg_b = np.log10(_formula9(band.kind, np.array([G ** e for e, _, _ in _CLASS1_TABLE])))
     mins = np.array([lo for _, lo, _ in _CLASS1_TABLE])
     maxs = np.array([hi for _, _, hi in _CLASS1_TABLE])
     lg = np.abs(np.log10(np.asarray(f_hz, dtype=float) / band.center_hz))
@@ -269,10 +272,8 @@ def class1_limits_db(band: Band, f_hz: np.ndarray) -> tuple[np.ndarray, np.ndarr
 
 def _tabulated_freqs(band: Band) -> np.ndarray:
     """The tabulated normalised frequencies of Table 1 (Formula 9 for b = 3), both sides."""
-    b = _b(band.kind)
-    r = (G ** (1.0 / (2 * b)) - 1.0) / (G ** 0.5 - 1.0)
     exps = sorted({e for e, _, _ in _CLASS1_TABLE})
-    om = np.array([1.0 + r * (G ** e - 1.0) for e in exps])
+    om = _formula9(band.kind, np.array([G ** e for e in exps]))
     return band.center_hz * np.concatenate([1.0 / om[::-1], om[1:]])
 
 
