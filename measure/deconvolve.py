@@ -40,7 +40,7 @@ from typing import Any
 import numpy as np
 
 from measure._dsp import parabolic_peak
-from measure._validate import check_nonnegative
+from measure._validate import check_nonnegative, check_positive
 from measure.errors import AudioFileError, ParameterError
 from measure.sweep import Sweep, inverse_spectrum
 
@@ -378,7 +378,8 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     AudioFileError
         If the recording is shorter than one sweep, holds NaN/Inf, or no sweep is found in it.
     ParameterError
-        If a channel number is out of range.
+        If a channel number is out of range, or ``pre_s``, ``max_length_s`` or ``n_harmonics``
+        is out of its range.
     """
     spec = sweep.spec
     fs = spec.fs
@@ -397,8 +398,12 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     if pre_s is None:
         pre_s = default_pre_s(spec.f1_hz)
     check_nonnegative(pre_s, "pre", unit="s")
+    if max_length_s is not None:
+        check_positive(max_length_s, "max_length", unit="s")
     if not (isinstance(n_harmonics, int) and n_harmonics >= 0):
-        raise ParameterError(f"n_harmonics={n_harmonics!r} must be a whole number >= 0")
+        raise ParameterError(
+            f"n_harmonics={n_harmonics!r} must be a whole number >= 0; give e.g. 4 (orders 2-5) "
+            "or 0 for none")
     for c in ([] if channels is None else list(channels)) + (
             [] if reference_channel is None else [reference_channel]):
         if not 0 <= c < n_ch:
