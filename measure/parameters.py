@@ -531,6 +531,9 @@ MIN_FILTER_TIME_CONSTANTS: float = 5.0
 MAX_XI_PERMILLE: float = 100.0
 #: Ts may start up to the 1 ms lead of the early sums before the onset, s.
 _TS_LEAD_S = 0.001
+#: How the flags name each figure.
+_FIGURE_NAMES = {"edt_s": "EDT", "t20_s": "T20", "t30_s": "T30", "c50_db": "C50",
+                 "c80_db": "C80", "drr_db": "DRR", "d50": "D50", "ts_s": "Ts"}
 
 
 def _plausibility(band: Band | None, fs: int, values: dict[str, float | None], label: str,
@@ -554,8 +557,6 @@ def _plausibility(band: Band | None, fs: int, values: dict[str, float | None], l
             t_min = MIN_FILTER_TIME_CONSTANTS * tau
             why_t = (f"below {MIN_FILTER_TIME_CONSTANTS:g} time constants of the band filter "
                      f"({t_min * 1000:.1f} ms), so the filter's own ringing")
-    names = {"edt_s": "EDT", "t20_s": "T20", "t30_s": "T30", "c50_db": "C50",
-             "c80_db": "C80", "drr_db": "DRR", "d50": "D50", "ts_s": "Ts"}
     for key, v in values.items():
         if v is None:
             continue
@@ -579,7 +580,7 @@ def _plausibility(band: Band | None, fs: int, values: dict[str, float | None], l
                 why = f"{v * 1000:.1f} ms lies before the sums start"
         if why is not None:
             values[key] = None
-            flags.append(f"{label}: {names[key]} set to null: {why}; the response is unusual "
+            flags.append(f"{label}: {_FIGURE_NAMES[key]} set to null: {why}; the response is unusual "
                          "or was misread (please report it)")
     return flags
 
@@ -663,7 +664,7 @@ def _single_numbers(b500: BandFigures | None, b1k: BandFigures | None) -> Single
     for key in ("t20_s", "t30_s", "edt_s", "c50_db", "c80_db", "d50", "ts_s"):
         vals[key] = _mean2(getattr(b500, key), getattr(b1k, key))
         if vals[key] is None:
-            flags.append(f"{key.split('_')[0].upper()} average missing: the 500 Hz or 1 kHz "
+            flags.append(f"{_FIGURE_NAMES[key]} average missing: the 500 Hz or 1 kHz "
                          "value is null (see its band's flags)")
     if vals["t30_s"] is not None:
         t_mid, t_from = vals["t30_s"], "T30"
