@@ -29,9 +29,12 @@ __all__ = [
     "write_audio",
     "read_json",
     "write_json",
+    "dumps",
     "sidecar_path",
     "file_sha256",
     "atomic_writer",
+    "read_sweep",
+    "write_ir",
 ]
 
 Subtype = Literal["FLOAT", "PCM_16", "PCM_24", "PCM_32", "DOUBLE"]
