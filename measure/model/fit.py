@@ -693,9 +693,9 @@ def _band_segments(measured, t0: float, horizon_s: float, late_start: float) -> 
 
 def _find_echoes(h: np.ndarray, fs: int, n_echoes: int | None, mixing_abs_s: float | None):
     """Direct sound and echoes (measure.model.echoes), searched up to the mixing time."""
-    from measure.model.echoes import find_echoes
+    from measure.model.echoes import direct_sound_index, find_echoes
 
-    t_direct = int(np.argmax(np.abs(h))) / fs
+    t_direct = direct_sound_index(h, fs) / fs  # the direct sound find_echoes will take
     span = 0.1 if mixing_abs_s is None else float(np.clip(mixing_abs_s - t_direct, 0.005, 0.1))
     return find_echoes(h, fs, n_echoes=n_echoes, max_delay_s=span)
 
