@@ -220,7 +220,7 @@ def test_pole_zero_fit_beats_warped_lp_per_section():
     # The reason for the default method: at equal number of second-order sections, and even
     # with twice as many for warped LP, the pole-zero log-magnitude fit has the lower LSD on a
     # room-like response (measured here: LM order 4: 0.64 dB, warped LP order 4: 2.37 dB,
-    # order 8: 2.12 dB).
+    # order 8: 2.11 dB).
     h = room_like_ir(5)
     lm4 = fit_coloration(h, FS, order=4, method="lm")
     wlp4 = fit_coloration(h, FS, order=4, method="warped_lp")

@@ -33,7 +33,7 @@ fixed at z = λ), kept for comparison.
 Why this method: a game engine pays per section, so the measure is accuracy per coefficient.
 On a 2-s room-like response (tests/test_model_coloration.py, ``room_like_ir(5)``) the
 third-octave LSD was, for orders 2 / 4 / 8 / 12: LM pole-zero 1.71 / 0.64 / 0.42 / 0.44 dB,
-warped LP 2.42 / 2.37 / 2.12 / 1.95 dB: two LM sections beat six warped-LP sections. The LM
+warped LP 2.42 / 2.37 / 2.11 / 1.95 dB: two LM sections beat six warped-LP sections. The LM
 fit minimises the reported error itself (log magnitude on a log grid), needs no phase target,
 and its parameterisation makes stability and minimum phase structural. Steiglitz-McBride
 (time-domain output error) weights linear frequency and spends poles on the fine modal
