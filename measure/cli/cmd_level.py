@@ -32,7 +32,7 @@ def run(args: argparse.Namespace) -> int:
     from measure.audio_io import read_sweep
     from measure.capture import check_rate
     from measure.cli import cmd_capture as cc
-    from measure.cli._common import info, print_json
+    from measure.cli._common import print_json, warn
     from measure.errors import DeviceError
 
     sweep = read_sweep(args.sweep)
@@ -48,8 +48,8 @@ def run(args: argparse.Namespace) -> int:
     else:
         print("\n".join(cc.format_level(report, labels)))
     if rec.n_xruns:
-        info(f"warning: the stream lost {rec.n_xruns} audio block(s); close other programs or "
-             "use a larger buffer")
+        warn(f"the stream lost {rec.n_xruns} audio block(s); close other programs or use a "
+             "larger buffer")
     if any(report.n_clipped):
         raise DeviceError("the input clipped; lower the loudspeaker volume or the input gain and "
                           "run the level check again")
