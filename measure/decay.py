@@ -44,6 +44,7 @@ __all__ = [
     "schroeder",
     "lundeby",
     "fit_range",
+    "decay_line",
     "fit_decay",
     "analyze_decay",
 ]
@@ -442,6 +443,27 @@ def fit_range(curve_db: np.ndarray, hi_db: float, lo_db: float, *,
     return i0, i1
 
 
+def decay_line(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
+               end_db: float | None = None) -> tuple[int, int, float, float, float] | None:
+    """The least-squares line of a decay fit between two levels (see :func:`fit_decay`).
+
+    Returns
+    -------
+    (i0, i1, a_db, b_db_per_s, r2) or None
+        The fitted samples ``[i0, i1)`` (:func:`fit_range`), the line
+        ``L(t) = a_db + b_db_per_s·t`` with t in s from the curve's first sample, and the
+        regression's r²; None when the range is not reached.
+    """
+    L = np.asarray(curve_db)
+    span = fit_range(L, hi_db, lo_db, end_db=end_db)
+    if span is None:
+        return None
+    i0, i1 = span
+    b, r2, mean = _uniform_slope(L[i0:i1])
+    b *= fs  # dB per sample -> dB per second
+    return i0, i1, mean - b * 0.5 * (i0 + i1 - 1) / fs, b, r2
+
+
 def fit_decay(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
               end_db: float | None = None) -> tuple[float, float] | None:
     """Least-squares decay fit of a Schroeder curve between two levels.
@@ -467,20 +489,17 @@ def fit_decay(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
         ``t_s = -60/slope`` (s) and the regression's r²; None when the curve does not reach
         ``lo_db`` or fewer than 3 samples fall in the range.
     """
-    L = np.asarray(curve_db)
-    span = fit_range(L, hi_db, lo_db, end_db=end_db)
-    if span is None:
+    line = decay_line(curve_db, fs, hi_db, lo_db, end_db=end_db)
+    if line is None:
         return None
-    i0, i1 = span
-    b, r2 = _uniform_slope(L[i0:i1])
-    b *= fs  # dB per sample -> dB per second
+    _, _, _, b, r2 = line
     if not (b < 0):
         return None
     return -60.0 / b, r2
 
 
-def _uniform_slope(y: np.ndarray) -> tuple[float, float]:
-    """Least-squares slope (per sample) and r² of y against its index, in three passes."""
+def _uniform_slope(y: np.ndarray) -> tuple[float, float, float]:
+    """Least-squares slope (per sample), r² and mean of y against its index, in three passes."""
     n = y.shape[0]
     j = np.arange(n, dtype=np.float64)
     j -= (n - 1) / 2.0
@@ -492,7 +511,7 @@ def _uniform_slope(y: np.ndarray) -> tuple[float, float]:
     syy = float(np.einsum("i,i->", y, y)) - n * ym * ym
     b = sjy / sjj
     r2 = (sjy * sjy) / (sjj * syy) if syy > 0 else 1.0
-    return b, min(r2, 1.0)
+    return b, min(r2, 1.0), ym
 
 
 @dataclass(frozen=True, slots=True, eq=False)

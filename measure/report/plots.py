@@ -216,19 +216,18 @@ def fit_line(curve_db: np.ndarray, fs: int, hi_db: float, lo_db: float, *,
     (t0_s, t1_s, a_db, b_db_per_s) or None
         The line ``L(t) = a + b t`` over ``t0 <= t <= t1`` (s from the curve's first sample);
         ``-60/b`` is the decay time. None when the range is not reached.
-    """
-    from measure.decay import fit_range
 
-    L = np.asarray(curve_db, dtype=np.float64)
-    span = fit_range(L, hi_db, lo_db, end_db=end_db)
-    if span is None:
+    See Also
+    --------
+    measure.decay.decay_line : the regression itself, shared with the analysis.
+    """
+    from measure.decay import decay_line
+
+    line = decay_line(np.asarray(curve_db, dtype=np.float64), fs, hi_db, lo_db, end_db=end_db)
+    if line is None:
         return None
-    i0, i1 = span
-    t = np.arange(i0, i1, dtype=np.float64) / fs
-    y = L[i0:i1]
-    tm, ym = float(t.mean()), float(y.mean())
-    b = float(np.sum((t - tm) * (y - ym)) / np.sum((t - tm) ** 2))
-    return float(t[0]), float(t[-1]), ym - b * tm, b
+    i0, i1, a, b, _ = line
+    return i0 / fs, (i1 - 1) / fs, a, b
 
 
 def _fmt_s(v: float | None) -> str:
