@@ -414,8 +414,8 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
             f"{labels[ref_row]} is silent: check the loopback cable and that the sweep plays on "
             f"output {loopback + 1} (--output-channels)")
         ref_row = None
-    mic_rows = [i for i in range(len(labels))
-                if i != ref_row and "reference" not in labels[i] and stats[i].peak_dbfs is not None]
+    mic_rows = [i for i, c in enumerate(input_channels)
+                if c != loopback and stats[i].peak_dbfs is not None]
     ir = None
     if mic_rows:
         try:
