@@ -253,13 +253,14 @@ def sti_from_mtf(mtf: np.ndarray, *, snr_db: np.ndarray | None = None,
 
 
 def mtf_from_band(h_band: np.ndarray, fs: int, *, stop_index: int | None = None,
-                  tail_a_db: float | None = None, tail_b_db_per_s: float | None = None
-                  ) -> np.ndarray:
+                  tail_a_db: float | None = None, tail_b_db_per_s: float | None = None,
+                  noise_power: float = 0.0) -> np.ndarray:
     """Modulation transfer function of one band-filtered IR (no noise factor).
 
-    ``m(F) = |Σ h²[n] e^{−j2πFn/fs}| / Σ h²[n]`` over ``h[:stop_index]``, optionally plus an
-    exponential tail continuing after ``stop_index`` whose per-sample energy is
-    ``10**((a + b t)/10)`` (t in s from the start of ``h_band``), summed analytically.
+    ``m(F) = |Σ e[n] e^{−j2πFn/fs}| / Σ e[n]`` with ``e = max(h² − noise_power, 0)`` over
+    ``h[:stop_index]``, optionally plus an exponential tail continuing after ``stop_index``
+    whose per-sample energy is ``10**((a + b t)/10)`` (t in s from the start of ``h_band``),
+    summed analytically.
 
     Returns
     -------
@@ -270,6 +271,8 @@ def mtf_from_band(h_band: np.ndarray, fs: int, *, stop_index: int | None = None,
     fs = check_fs(fs)
     n1 = h.shape[0] if stop_index is None else int(stop_index)
     e = h[:n1] ** 2
+    if noise_power:
+        e = np.maximum(e - noise_power, 0.0)  # the IR's own measurement noise removed
     # Decimate the energy envelope before the transform: F <= 12.6 Hz, so summing blocks of
     # q samples changes the result by < (πFq/fs)²/6 relative (q/fs <= 0.5 ms: < 7e-5).
     q = max(1, int(fs // 2000))
@@ -347,10 +350,9 @@ def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
         nf = lundeby(seg, fs)
         if nf.ok and nf.late_fit_db is not None:
             a, b = nf.late_fit_db
-            if nf.noise_floor_found:
-                seg = np.sign(seg) * np.sqrt(np.maximum(seg * seg - nf.noise_power, 0.0))
             out[k] = mtf_from_band(seg, fs, stop_index=nf.truncation_index, tail_a_db=a,
-                                   tail_b_db_per_s=b)
+                                   tail_b_db_per_s=b,
+                                   noise_power=nf.noise_power if nf.noise_floor_found else 0.0)
         else:
             flags.append(f"STI {band.name} band: no decay above the noise "
                          f"({nf.reason}); the whole band IR is used as it is")

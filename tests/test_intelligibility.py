@@ -80,6 +80,18 @@ def test_mtf_of_noise_free_exponential_decay(t60):
     assert m == pytest.approx(analytic_mtf(t60), abs=1e-4)
 
 
+def test_mtf_from_band_removes_the_given_noise_power():
+    # h² = e^{−κt} + P: subtracting the noise power P leaves the exponential decay exactly
+    # (derived), so m is its analytic MTF to the same 1e-4 as the noise-free check above;
+    # without the subtraction the constant P (30 dB below the start, over 3 s: 4 % of the
+    # energy) lowers m by far more than that.
+    t60, p = 1.0, 1e-3
+    t = np.arange(int(3 * t60 * FS)) / FS
+    h = np.sqrt(np.exp(-DECAY_CONSTANT * t / t60) + p)
+    assert mtf_from_band(h, FS, noise_power=p) == pytest.approx(analytic_mtf(t60), abs=1e-4)
+    assert np.max(np.abs(mtf_from_band(h, FS) - analytic_mtf(t60))) > 1e-2
+
+
 @pytest.mark.parametrize("t60", [0.5, 1.0, 2.0])
 def test_mtf_through_the_octave_filters(t60):
     # The same check through the whole path (class 1 octave filter, Lundeby, tail): a tone at
