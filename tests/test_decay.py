@@ -204,7 +204,10 @@ def test_noise_at_50_db_pnr_keeps_t20():
                            for f in dn.flags), dn.flags
             else:
                 assert dn.t30_s == pytest.approx(dc.t30_s, rel=0.05)
-            assert 44.0 < dn.peak_to_noise_db < 53.0  # band PNR near the broadband 50 dB
+            # band PNR near the broadband 50 dB: white noise and the IR's start lose the same
+            # share in a band (derived), the peak factors differ; the bounds are the measured
+            # 44.6-51.8 dB of these six seeded realisations widened by about 1 dB, no source
+            assert 44.0 < dn.peak_to_noise_db < 53.0
     assert n_t30_null > 0
 
 
