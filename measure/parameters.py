@@ -385,7 +385,9 @@ class BandFigures:
 class SingleNumbers:
     """Single-number averages over the 500 Hz and 1 kHz octaves (ISO 3382-1:2009 Table A.1).
 
-    Each is the arithmetic mean of the two octave values, None when either is missing.
+    Table A.1 gives these octaves for EDT and T_mid; that C50, C80, D50 and Ts use the same two
+    is from memory (measurement.md §2.3). Each is the arithmetic mean of the two octave
+    values, None when either is missing.
     ``t_mid_s`` is T30 averaged when both T30 values exist, else T20 (``t_mid_from`` says
     which).
     """
