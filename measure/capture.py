@@ -28,6 +28,7 @@ from typing import Any, Literal
 import numpy as np
 
 from measure._validate import check_fs
+from measure.deconvolve import CLIP_LEVEL  # one clipping rule for takes, level check and IR
 from measure.errors import DeviceError, MissingDependencyError, ParameterError
 
 __all__ = [
@@ -63,11 +64,6 @@ NO_DEVICE_ADVICE = (
     "holds the device (or that the PipeWire/PulseAudio/JACK server runs); on macOS allow "
     "microphone access for the terminal in System Settings > Privacy; on Windows enable the "
     "device in Sound settings and allow microphone access")
-
-#: A sample at or beyond this magnitude counts as clipped: the largest positive 16-bit PCM code,
-#: 32767/32768 (derived: a 16-bit converter at full scale delivers exactly this value, a 24-bit
-#: or float one delivers more). Anything that reaches it has used up the converter's range.
-CLIP_LEVEL = 32767.0 / 32768.0
 
 #: Peak-to-noise ratio needed in the impulse response: the noise must be at least 15 dB below the
 #: bottom of the evaluation range, i.e. 35 dB for T20 and 45 dB for T30 (ISO 3382-1:2009 5.3.3).

@@ -66,8 +66,11 @@ DETECTION_DB = 24.0
 MIN_NOISE_LAGS_S = 0.1
 #: How far (s) another channel's direct sound is looked for around the timing channel's.
 ARRIVAL_SEARCH_S = 0.1
-#: Samples at or beyond this magnitude count as clipped.
-CLIP_LEVEL = 0.999
+#: A sample at or beyond this magnitude counts as clipped: the largest positive 16-bit PCM code,
+#: 32767/32768 (derived: a 16-bit converter at full scale delivers exactly this value, a 24-bit
+#: or float one delivers more). Anything that reaches it has used up the converter's range.
+#: The one definition: measure.capture judges takes and the level check with it too.
+CLIP_LEVEL = 32767.0 / 32768.0
 #: Time kept before the direct sound of each harmonic response.
 HARMONIC_PRE_S = 0.005
 #: Group-delay fit band for the single-sweep drift estimate (measurement.md §1.6).
