@@ -116,27 +116,41 @@ def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
     """Open a temporary file beside ``path``; on success fsync and rename it over ``path``.
 
     On any exception (including KeyboardInterrupt) the temporary file is removed and ``path`` is
-    left as it was.
+    left as it was. An operating-system error (no such folder, no permission, disk full) becomes
+    an :class:`AudioFileError` that names the folder and what to check.
     """
     target = Path(path)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    with _os_errors(target):
+        target.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     try:
-        # mkstemp makes the file owner-only; give it the permissions of any new file
-        umask = os.umask(0)
-        os.umask(umask)
-        with contextlib.suppress(OSError):
-            os.chmod(tmp, 0o666 & ~umask)
-        with os.fdopen(fd, mode) as fh:
-            yield fh
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, target)
+        with _os_errors(target):
+            # mkstemp makes the file owner-only; give it the permissions of any new file
+            umask = os.umask(0)
+            os.umask(umask)
+            with contextlib.suppress(OSError):
+                os.chmod(tmp, 0o666 & ~umask)
+            with os.fdopen(fd, mode) as fh:
+                yield fh
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.replace(tmp, target)
         _fsync_dir(target.parent)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+
+
+@contextlib.contextmanager
+def _os_errors(target: Path):
+    """Turn an OSError while writing ``target`` into an AudioFileError saying what to check."""
+    try:
+        yield
+    except OSError as err:
+        raise AudioFileError(
+            f"cannot write into {target.parent} ({err.strerror or err}); check that it is a "
+            "folder you may write to and that the disk has free space") from err
 
 
 def _fsync_dir(folder: Path) -> None:

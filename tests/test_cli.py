@@ -136,6 +136,17 @@ def test_sweep_refuses_bad_parameters(tmp_path, capsys, argv, match):
     assert not out.exists()
 
 
+def test_an_unwritable_output_is_one_error_line(tmp_path, capsys):
+    # The output's folder is a file: the OSError of the atomic writer becomes one `error:` line
+    # naming the folder and what to check (exit 2), never a traceback, and nothing is written.
+    blocker = tmp_path / "not-a-folder"
+    blocker.write_text("")
+    code, _, err = run(["sweep", str(blocker / "s.wav")], capsys)
+    assert code == 2 and err.startswith("error: cannot write into") and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["not-a-folder"]
+
+
 def test_cli_defaults_match_the_library_defaults():
     # STYLE.md §9: one test that the CLI defaults match the library defaults.
     from measure.cli import build_parser
