@@ -36,13 +36,18 @@ def run(args: argparse.Namespace) -> int:
     from measure.cli._common import info
     from measure.deconvolve import recover_ir
     from measure.demo import BUILDING, DEMO_SWEEP, DEMO_TAKES
+    from measure.errors import AudioFileError
     from measure.model.fit import model_demo
     from measure.parameters import analyze_ir
     from measure.sweep import make_sweep
     from measure.virtual import room_ir, virtual_take
 
     root = _new_folder(args.out)
-    root.mkdir(parents=True, exist_ok=True)
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise AudioFileError(f"cannot create the folder {root} ({err.strerror or err}); give "
+                             "--out a folder you may write to") from err
     info(f"{BUILDING}: measuring {len(DEMO_TAKES)} spaces with virtual equipment into {root}/")
     sweep = make_sweep(DEMO_SWEEP)
     sweep_wav = audio_io.write_audio(root / "sweeps" / "demo-sweep.wav", sweep.program,
