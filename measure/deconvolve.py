@@ -194,12 +194,6 @@ class ImpulseResponse:
         }
 
 
-@dataclass(frozen=True, slots=True)
-class _Located:
-    starts: np.ndarray  # fractional positions of each sweep's direct sound in the recording
-    drift: float        # ε
-
-
 def _fft_len(n: int) -> int:
     from scipy.fft import next_fast_len
 
