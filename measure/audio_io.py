@@ -170,13 +170,19 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
     Parameters
     ----------
     path : path-like
-        Target ``.wav`` file; its folder is created if needed.
+        Target ``.wav`` file (``.flac`` writes FLAC); its folder is created if needed.
     x : ndarray
         Samples, full scale = 1.0, time on the last axis.
     fs : int, > 0, Hz
         Sample rate.
     subtype : {"FLOAT", "PCM_16", "PCM_24", "PCM_32", "DOUBLE"}
         Sample format; impulse responses are 32-bit float.
+
+    Raises
+    ------
+    AudioFileError
+        If the name ends in neither ``.wav`` nor ``.flac``, the samples hold NaN or Inf, or the
+        folder cannot be written.
     """
     import soundfile as sf
 
@@ -187,9 +193,12 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
     if not np.all(np.isfinite(a)):
         raise AudioFileError(f"refusing to write NaN or Inf samples to {path}; this is a bug")
     target = Path(path)
-    fmt = "WAV" if target.suffix.lower() in (".wav", "") else None
+    fmt = {".wav": "WAV", "": "WAV", ".flac": "FLAC"}.get(target.suffix.lower())
+    if fmt is None:  # any other name used to get FLAC content whatever it said
+        raise AudioFileError(
+            f"cannot tell the audio format of {target} from its name; end it in .wav (or .flac)")
     with atomic_writer(target) as fh:
-        sf.write(fh, a.T, fs, subtype=subtype, format=fmt or "FLAC")
+        sf.write(fh, a.T, fs, subtype=subtype, format=fmt)
     return target
 
 
