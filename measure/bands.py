@@ -42,6 +42,7 @@ from __future__ import annotations
 
 import functools
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Literal
 
@@ -52,6 +53,7 @@ from measure.errors import ParameterError
 
 __all__ = [
     "G",
+    "complementary_masks",
     "MAX_ORDER",
     "BASE_ORDER",
     "DEFAULT_RANGES_HZ",
@@ -484,3 +486,39 @@ def filter_bands(h: np.ndarray, fs: int, bands: tuple[Band, ...] | list[Band], *
         y = sosfilt(np.array(band_filter_sos(band, fs)), src)
         out[i] = y[::-1] if mode == "reversed" else y
     return out
+
+
+def complementary_masks(band_centers_hz: Sequence[float], freqs_hz: np.ndarray, *,
+                        transition_octaves: float) -> np.ndarray:
+    """Amplitude-complementary band masks: ``Σ_b W_b(f) = 1`` at every frequency.
+
+    Used to split a spectrum into bands that add back up exactly (the virtual room's per-band
+    decays, the model's per-band delay networks); not an IEC 61260-1 analysis filter.
+
+    Between neighbouring centres ``f_b`` and ``f_{b+1}`` the masks cross with a raised cosine
+    (``cos²``/``sin²``) of width ``transition_octaves`` centred on the geometric mean of the two
+    centres; the lowest band extends to DC and the highest to Nyquist.
+
+    Returns
+    -------
+    ndarray, shape (bands, len(freqs_hz))
+    """
+    fc = np.asarray(band_centers_hz, dtype=np.float64)
+    n_b = fc.size
+    f = np.maximum(np.asarray(freqs_hz, dtype=np.float64), 1e-6)
+    lf = np.log2(f)
+    # up[b](f): share of the bands above the crossover between b and b+1
+    up = np.empty((max(n_b - 1, 0), f.size))
+    for j in range(n_b - 1):
+        edge = 0.5 * (np.log2(fc[j]) + np.log2(fc[j + 1]))
+        width = min(transition_octaves, np.log2(fc[j + 1] / fc[j]))
+        u = np.clip((lf - edge) / width + 0.5, 0.0, 1.0)
+        up[j] = np.sin(0.5 * np.pi * u) ** 2
+    # W_b = up[b−1]·(1 − up[b]): the sum telescopes to one. Transition b spans at most
+    # [log2 f_b, log2 f_b+1] (width <= the spacing, centred on the midpoint), so transitions
+    # never overlap and this equals the product form W_b = (1 − up[b])·Π_{k<b} up[k].
+    masks = np.ones((n_b, f.size))
+    if n_b > 1:
+        masks[:-1] -= up
+        masks[1:] *= up
+    return masks

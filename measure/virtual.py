@@ -21,6 +21,7 @@ import numpy as np
 
 from measure._dsp import fractional_impulse, interpolate
 from measure._validate import check_fs, check_nonnegative, check_positive, check_signal
+from measure.bands import complementary_masks
 from measure.errors import ParameterError
 
 __all__ = ["VirtualRoom", "room_ir", "virtual_take", "DEMO_ROOMS", "OCTAVE_CENTERS_HZ"]
@@ -83,30 +84,6 @@ class VirtualRoom:
 CROSSFADE_OCTAVES = 1.0 / 3.0
 
 
-def _band_masks(n_fft: int, fs: int, centers_hz: tuple[float, ...]) -> np.ndarray:
-    """Complementary masks, one per band, summing to 1 at every bin.
-
-    Each band is flat between the geometric midpoints to its neighbours and cross-fades
-    (sin²/cos² in log f, CROSSFADE_OCTAVES wide) into them, so an octave filter centred on a
-    band sees mostly that band's decay.
-    """
-    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    lf = np.log2(np.maximum(f, 1e-3))
-    lc = np.log2(np.asarray(centers_hz))
-    edges = 0.5 * (lc[1:] + lc[:-1])  # log2 of the geometric midpoints
-    half = 0.5 * CROSSFADE_OCTAVES
-    # rise[j]: 0 below edge j, 1 above it, with the cross-fade across it
-    rise = [np.sin(0.5 * math.pi * np.clip((lf - e + half) / (2 * half), 0.0, 1.0)) ** 2
-            for e in edges]
-    masks = np.ones((lc.size, f.size))
-    for b in range(lc.size):
-        if b > 0:
-            masks[b] *= rise[b - 1]
-        if b < lc.size - 1:
-            masks[b] *= 1.0 - rise[b]
-    return masks
-
-
 def room_ir(room: VirtualRoom, fs: int, *, seed: int = 0) -> np.ndarray:
     """Synthesise the room's impulse response at ``fs``.
 
@@ -136,7 +113,8 @@ def room_ir(room: VirtualRoom, fs: int, *, seed: int = 0) -> np.ndarray:
     rng = np.random.default_rng(seed)
     n_fft = 1 << int(math.ceil(math.log2(2 * n)))
     noise_spec = np.fft.rfft(rng.standard_normal(n_fft))
-    masks = _band_masks(n_fft, fs, room.band_centers_hz)
+    masks = complementary_masks(room.band_centers_hz, np.fft.rfftfreq(n_fft, 1.0 / fs),
+                                transition_octaves=CROSSFADE_OCTAVES)
     t = (np.arange(n) - t0) / fs  # time after the direct sound
     onset = room.tail_onset_s
     build = np.clip((t - onset) / 0.002, 0.0, 1.0)  # 2 ms raised-cosine build-up

@@ -418,37 +418,13 @@ def half_spectrum_weights(n_fft: int) -> np.ndarray:
 
 def band_masks(band_centers_hz: Sequence[float], freqs_hz: np.ndarray, *,
                transition_octaves: float | None = None) -> np.ndarray:
-    """Amplitude-complementary band masks: ``Σ_b W_b(f) = 1`` at every frequency.
+    """Amplitude-complementary band masks (:func:`measure.bands.complementary_masks`) with
+    this module's default cross-fade width, MASK_TRANSITION_OCTAVES."""
+    from measure.bands import complementary_masks
 
-    Between neighbouring centres ``f_b`` and ``f_{b+1}`` the masks cross with a raised cosine
-    (``cos²``/``sin²``) of width ``transition_octaves`` centred on the geometric mean of the two
-    centres; the lowest band extends to DC and the highest to Nyquist.
-
-    Returns
-    -------
-    ndarray, shape (bands, len(freqs_hz))
-    """
     if transition_octaves is None:
         transition_octaves = MASK_TRANSITION_OCTAVES
-    fc = np.asarray(band_centers_hz, dtype=np.float64)
-    n_b = fc.size
-    f = np.maximum(np.asarray(freqs_hz, dtype=np.float64), 1e-6)
-    lf = np.log2(f)
-    # up[b](f): share of the bands above the crossover between b and b+1
-    up = np.empty((max(n_b - 1, 0), f.size))
-    for j in range(n_b - 1):
-        edge = 0.5 * (np.log2(fc[j]) + np.log2(fc[j + 1]))
-        width = min(transition_octaves, np.log2(fc[j + 1] / fc[j]))
-        u = np.clip((lf - edge) / width + 0.5, 0.0, 1.0)
-        up[j] = np.sin(0.5 * np.pi * u) ** 2
-    # W_b = up[b−1]·(1 − up[b]): the sum telescopes to one. Transition b spans at most
-    # [log2 f_b, log2 f_b+1] (width <= the spacing, centred on the midpoint), so transitions
-    # never overlap and this equals the product form W_b = (1 − up[b])·Π_{k<b} up[k].
-    masks = np.ones((n_b, f.size))
-    if n_b > 1:
-        masks[:-1] -= up
-        masks[1:] *= up
-    return masks
+    return complementary_masks(band_centers_hz, freqs_hz, transition_octaves=transition_octaves)
 
 
 def white_levels_db(band_centers_hz: Sequence[float], fs: int, total_db: float) -> tuple[float, ...]:
