@@ -30,16 +30,33 @@ Method (``method="lm"``, the default)
 ``method="warped_lp"`` returns the all-pole warped LP of step 2 alone (order poles, order zeros
 fixed at z = λ), kept for comparison.
 
-Why this method: a game engine pays per section, so the measure is accuracy per coefficient.
-On a 2-s room-like response (tests/test_model_coloration.py, ``room_like_ir(5)``) the
-third-octave LSD was, for orders 2 / 4 / 8 / 12: LM pole-zero 1.71 / 0.64 / 0.42 / 0.44 dB,
-warped LP 2.42 / 2.37 / 2.11 / 1.95 dB: two LM sections beat six warped-LP sections. The LM
-fit minimises the reported error itself (log magnitude on a log grid), needs no phase target,
-and its parameterisation makes stability and minimum phase structural. Steiglitz-McBride
-(time-domain output error) weights linear frequency and spends poles on the fine modal
-structure of the top octaves; Sanathanan-Koerner / vector fitting need a complex (phase)
-target and are poorly conditioned for roots crowded near z = 1 at low frequencies; neither
-was implemented, so neither was measured here.
+Why this method: a game engine pays per section, so the measure is accuracy per coefficient
+(2·order + 1 for every method here). Third-octave LSD 63 Hz - 16 kHz in dB at 48 kHz, measured by
+bench/bench_coloration.py on ``room_like_ir(5)`` of tests/test_model_coloration.py (2 s) and as
+the mean over six responses (``room_like_ir`` seeds 5, 6, 7 and the first 2 s of the three demo
+rooms of :mod:`measure.virtual`); SM is Steiglitz-McBride (Prony start with nb = 0, 10
+iterations) on the minimum-phase impulse response of the same smoothed target, unstable roots
+reflected inside with the gain correction::
+
+    order (coefficients)        2 (5)   4 (9)   6 (13)   8 (17)   12 (25)
+    room_like_ir(5)  LM          1.71    0.64    0.61     0.42     0.44
+                     warped LP   2.42    2.37    2.21     2.11     1.95
+                     SM          1.47    0.86    0.75     0.55     0.62
+    mean of six      LM          1.16    0.80    0.73     0.53     0.49
+                     warped LP   1.54    1.49    1.46     1.43     1.37
+                     SM          1.17    0.92    0.87     0.79     1.04
+
+Two LM sections beat six warped-LP sections. SM ties LM at order 2 on average and is 0.1-0.55 dB
+worse from order 4 up; at order 12 it can fail (3.05 dB on the office room). It is faster (about
+10-40 ms a fit against 10-650 ms for LM up to order 12), but on the quantity LM minimises (the
+weighted RMS dB error on the fitting grid) LM is lower in all 30 cases; SM's lower band LSD in 6
+of them (by at most 0.24 dB, mostly at order 2) comes from the two measures differing (grid and
+guard regions against third-octave bands), not from a better fit. SM's time-domain error weights
+linear frequency (Parseval), whereas the LM fit minimises a log-magnitude error on a log grid
+(close to, though not the same as, the reported band LSD), needs no phase target, and its parameterisation makes stability and
+minimum phase structural. Sanathanan-Koerner / vector fitting need a complex (phase) target and
+are poorly conditioned for roots crowded near z = 1 at low frequencies; they were not
+implemented, so not measured.
 
 Representation and other sample rates
     The fit is stored exactly as SOS at the fitting ``fs`` together with its zeros, poles and
