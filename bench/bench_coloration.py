@@ -37,13 +37,14 @@ from __future__ import annotations
 
 import math
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
 from scipy import linalg, signal
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from _timing import best_of
 
 from measure.model._smoothing import log_spectral_distance, smooth_power  # noqa: E402
 from measure.model.coloration import (  # noqa: E402
@@ -72,12 +73,7 @@ SEEDS = (5, 6, 7)
 
 
 def _best(fn, n: int = N_RUNS):
-    best, out = math.inf, None
-    for _ in range(n):
-        t = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t)
-    return best, out
+    return best_of(fn, n)
 
 
 # ---------------------------------------------------------------------------------------------

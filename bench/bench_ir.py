@@ -11,10 +11,10 @@ Prints two ratios against floors measured in the same run:
 
 from __future__ import annotations
 
-import time
 import tracemalloc
 
 import numpy as np
+from _timing import best_of
 from scipy.signal import fftconvolve
 
 from measure.deconvolve import recover_ir
@@ -23,15 +23,6 @@ from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
 
 FS = 48000
 REPEATS = 7
-
-
-def best_of(fn, n: int = REPEATS) -> float:
-    times = []
-    for _ in range(n):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
 
 
 def main() -> None:
@@ -43,8 +34,8 @@ def main() -> None:
     inverse = sweep.x[::-1].copy()  # the time-reversed sweep: same length as the inverse filter
     print(f"capture {y.size / FS:.1f} s at {FS} Hz, sweep {spec.duration_s:g} s, drift 35 ppm")
 
-    t_floor = best_of(lambda: fftconvolve(y, inverse))
-    t_ir = best_of(lambda: recover_ir(y, sweep))
+    t_floor, _ = best_of(lambda: fftconvolve(y, inverse), REPEATS)
+    t_ir, _ = best_of(lambda: recover_ir(y, sweep), REPEATS)
     print(f"fftconvolve(capture, inverse)   {t_floor * 1000:8.1f} ms  (floor)")
     print(f"recover_ir(capture)             {t_ir * 1000:8.1f} ms")
     print(f"time ratio                      {t_ir / t_floor:8.2f}   (target <= 3)")

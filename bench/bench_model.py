@@ -31,6 +31,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from _timing import best_of
+
 from measure.bands import make_bands  # noqa: E402
 from measure.model.coloration import _remapped_sos  # noqa: E402
 from measure.model.fit import N_CALIBRATION_PASSES, fit_model  # noqa: E402
@@ -52,13 +54,8 @@ N_RUNS = 3
 RENDER_RATES = (44100, 48000, 96000)
 
 
-def _best(fn, n: int = N_RUNS) -> tuple[float, object]:
-    best, out = math.inf, None
-    for _ in range(n):
-        t = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t)
-    return best, out
+def _best(fn, n: int = N_RUNS):
+    return best_of(fn, n)
 
 
 def _eq_sos(kind: str, f0_hz: float, gain_db: float, fs: int, q: float = 1.0) -> np.ndarray:
