@@ -4,11 +4,42 @@ The sweep is the exponential (logarithmic) sine sweep of Farina [1]_:
 
     x(t) = A · sin(2π f1 L (e^{t/L} − 1)),  0 ≤ t < T,  L = T / ln(f2/f1),
 
-whose instantaneous frequency f1·e^{t/L} spends equal time in every octave. Its inverse is
-applied by regularised spectral division (Kirkeby et al. [2]_): H = Y·X* / (|X|² + ε(f)), with
-ε tiny inside [f1, f2] and large outside, so that the in-band response of a wire is exactly flat
-and the harmonic-distortion products land before the linear impulse response, advanced by
-L·ln N for the N-th harmonic [1]_.
+whose instantaneous frequency f1·e^{t/L} spends equal time in every octave. By stationary phase
+its spectrum is pink, |X(f)| = (A/2)·√(L/f) inside [f1, f2] (measurement.md §1.1), and the
+harmonic-distortion products of a deconvolution land before the linear impulse response,
+advanced by L·ln N for the N-th harmonic [1]_.
+
+The inverse (:func:`inverse_spectrum`)
+--------------------------------------
+Deconvolution is regularised spectral division (Kirkeby et al. [2]_, measurement.md §1.7):
+
+    G(f) = X*(f) / (|X(f)|² + ε(f)),   ε(f) = β·max|X|² + P_nom(f)·ρ(f).
+
+* Inside [f1, f2] ρ = 0 and ε = β·max|X|² with β = 1e-6 (60 dB below the strongest bin): G is
+  the exact inverse 1/X wherever the sweep has energy, fades included, and equals the ideal
+  in-band inverse of measurement.md §1.7 there. (A sweep from 20 Hz loses 0.005 dB at 20 kHz to
+  this ε; one from 1 Hz, 0.1 dB at 24 kHz.)
+* Outside [f1, f2] the sweep has no energy of its own, only the skirts of its edges and its
+  fades. There ε follows the sweep's nominal power at the nearer edge, P_nom(f) = |X(f_edge)|²
+  (the stationary-phase level above, in DFT units fs²·A²·L/(4 f_edge)), times a raised-cosine
+  step ρ(f) that rises from 0 at the edge to 1 over :data:`LOW_TRANSITION_OCTAVES` below f1 and
+  :data:`HIGH_TRANSITION_OCTAVES` above f2. Since max over |X| of |X|/(|X|² + c) is 1/(2√c),
+  the gain beyond the transition is at most half the in-band gain at the edge, whatever the
+  sweep's skirts hold: the background noise there is not amplified.
+
+The earlier design let ε rise geometrically from 1e-9·max|X|² to max|X|² over half an octave
+outside the band; the sweep's skirt falls much faster than that, so just above f2 the inverse's
+gain stood about 50 dB above its in-band gain (measured: 52 dB at 20.7 kHz for a 20 Hz–20 kHz
+sweep at 48 kHz), and white background noise there filled every octave band of the response
+(a 50 Hz–16 kHz sweep lost 12 dB of range in the 8 kHz octave; 100 Hz–10 kHz with 0.2 s fades,
+20 dB). With this design the deconvolved noise of every octave band inside the sweep equals an
+ideal in-band inverse (measured within 0.05 dB for white and pink noise, 44.1–96 kHz, sweeps
+ending at 10, 16, 20 kHz or Nyquist, fades of 0–0.5 s; tests/test_noise_floor.py).
+
+The low transition is wide (half an octave) so that the band limit at f1 rings for about two
+periods of f1 only: the response keeps that much time before its direct sound
+(:func:`measure.deconvolve.default_pre_s`). The high one is narrow (1/12 octave) because the
+sweep's skirt above f2 is narrow; a sweep that reaches Nyquist has no band above it.
 
 Everything that defines the signal is in :class:`SweepSpec`; :func:`make_sweep` rebuilds it bit
 for bit from those numbers, which is what the JSON sidecar stores.
@@ -48,11 +79,15 @@ __all__ = [
 SIDECAR_FORMAT = "measure.sweep/1"
 #: Peak level of a new sweep. Deliberately low: raise it step by step after a level check.
 DEFAULT_LEVEL_DBFS = -20.0
-#: Regularisation of the spectral division, relative to the largest |X|² (see inverse_spectrum).
-IN_BAND_REGULARISATION = 1e-9
+#: In-band regularisation β of the spectral division, relative to the largest |X|²: 60 dB down,
+#: the ideal in-band inverse of measurement.md §1.7 (see the module notes).
+IN_BAND_REGULARISATION = 1e-6
+#: Out-of-band regularisation ρ reached at the end of each transition, relative to the sweep's
+#: nominal power at the nearer edge: the gain there is at most half the edge's (module notes).
 OUT_OF_BAND_REGULARISATION = 1.0
-#: Width of the raised-cosine step of the regularisation at f1 and f2, in octaves.
-TRANSITION_OCTAVES = 0.5
+#: Widths of the raised-cosine steps of ρ below f1 and above f2, in octaves (module notes).
+LOW_TRANSITION_OCTAVES = 0.5
+HIGH_TRANSITION_OCTAVES = 1.0 / 12.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -235,10 +270,11 @@ class Sweep:
             "fade_shape": "half-Hann",
             "formula": "x(n) = 10^(level_dbfs/20) * sin(2*pi*f1_hz*L*(exp(n/(fs*L)) - 1)) * fade(n)",
             "inverse": {
-                "method": "regularised spectral division",
-                "in_band_regularisation": IN_BAND_REGULARISATION,
-                "out_of_band_regularisation": OUT_OF_BAND_REGULARISATION,
-                "transition_octaves": TRANSITION_OCTAVES,
+                "method": "regularised spectral division X*/(|X|^2 + eps)",
+                "in_band_regularisation_re_max_power": IN_BAND_REGULARISATION,
+                "out_of_band_regularisation_re_edge_power": OUT_OF_BAND_REGULARISATION,
+                "low_transition_octaves": LOW_TRANSITION_OCTAVES,
+                "high_transition_octaves": HIGH_TRANSITION_OCTAVES,
             },
             "harmonic_advance_s": {str(n): s.harmonic_advance_s(n) for n in range(2, 6)},
         }
@@ -294,29 +330,32 @@ def make_sweep(spec: SweepSpec) -> Sweep:
     return Sweep(spec=spec, x=x, program=program)
 
 
-def _regularisation_weight(f_hz: np.ndarray, f1_hz: float, f2_hz: float, nyquist_hz: float
-                           ) -> np.ndarray:
-    """ε(f) shape: IN_BAND inside [f1, f2], OUT_OF_BAND outside, raised-cosine steps in log f.
+def _edge_weight(f_hz: np.ndarray, f1_hz: float, f2_hz: float, nyquist_hz: float
+                 ) -> np.ndarray:
+    """ρ(f)/f_edge: 0 inside [f1, f2], outside a raised-cosine step to ρ_max over the transition
+    divided by the nearer edge frequency (the nominal power is ∝ 1/f_edge).
 
     Only the bins outside [f1, f2] are computed (memory stays at one array for long FFTs).
     """
-    lo, hi = math.log2(IN_BAND_REGULARISATION), math.log2(OUT_OF_BAND_REGULARISATION)
-    w = np.full(f_hz.shape, IN_BAND_REGULARISATION)
+    w = np.zeros(f_hz.shape)
 
-    def step(sel: np.ndarray, octaves: np.ndarray) -> None:
-        u = np.clip(octaves / TRANSITION_OCTAVES, 0.0, 1.0)
-        w[sel] = 2.0 ** (lo + (hi - lo) * (0.5 - 0.5 * np.cos(math.pi * u)))
+    def step(sel: np.ndarray, octaves: np.ndarray, width: float, edge_hz: float) -> None:
+        u = np.clip(octaves / width, 0.0, 1.0)
+        w[sel] = OUT_OF_BAND_REGULARISATION * (0.5 - 0.5 * np.cos(math.pi * u)) / edge_hz
 
     below = np.nonzero(f_hz < f1_hz)[0]
-    step(below, math.log2(f1_hz) - np.log2(np.maximum(f_hz[below], 1e-12)))
+    step(below, math.log2(f1_hz) - np.log2(np.maximum(f_hz[below], 1e-12)),
+         LOW_TRANSITION_OCTAVES, f1_hz)
     if f2_hz < nyquist_hz * 0.999:  # a sweep up to Nyquist has no band above it
         above = np.nonzero(f_hz > f2_hz)[0]
-        step(above, np.log2(f_hz[above]) - math.log2(f2_hz))
+        step(above, np.log2(f_hz[above]) - math.log2(f2_hz), HIGH_TRANSITION_OCTAVES, f2_hz)
     return w
 
 
 def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np.ndarray:
-    """rfft-domain inverse of one sweep: X*/(|X|² + ε), for deconvolution by multiplication.
+    """rfft-domain inverse of one sweep: X*/(|X|² + ε(f)), for deconvolution by multiplication.
+
+    The design (where ε is small and where it follows the sweep's edges) is in the module notes.
 
     Parameters
     ----------
@@ -333,6 +372,17 @@ def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np
         Multiply the rfft of a recording by this and take the irfft: the impulse response of
         sweep start ``s`` in the recording appears at index ``s``; harmonic products at negative
         lags wrap to the end.
+
+    Examples
+    --------
+    The gain beyond f2 stays below the in-band gain at f2 (here 20 Hz–20 kHz at 48 kHz):
+
+    >>> spec = SweepSpec(fs=48000, f1_hz=20.0, f2_hz=20000.0, duration_s=2.0)
+    >>> g = np.abs(inverse_spectrum(spec, 1 << 18))
+    >>> f = np.fft.rfftfreq(1 << 18, 1 / 48000)
+    >>> edge = np.median(g[(f > 17000) & (f < 19000)])
+    >>> bool(g[f > 20000 * 2 ** (1 / 12)].max() < 0.5 * edge)
+    True
     """
     from scipy.fft import rfft
 
@@ -343,9 +393,13 @@ def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np
     del x
     power = X.real * X.real
     power += X.imag * X.imag
-    # The weight's shape is taken on the player's frequency grid: a clock stretch of a few
-    # hundred ppm moves its smooth steps by a negligible fraction of their width.
-    power += float(power.max()) * _weight_on_grid(n_fft, spec.fs, spec.f1_hz, spec.f2_hz)
+    # ε: β·max|X|² everywhere, plus the nominal edge power (fs²·A²·L/(4 f_edge), module notes)
+    # times the step outside the band. The step's shape is taken on the player's frequency
+    # grid: a clock stretch of a few hundred ppm moves it by a negligible fraction of its width.
+    floor = IN_BAND_REGULARISATION * float(power.max())
+    nominal = spec.fs**2 * spec.peak**2 * spec.rate_constant_s / 4.0
+    power += nominal * _weight_on_grid(n_fft, spec.fs, spec.f1_hz, spec.f2_hz)
+    power += floor
     np.conjugate(X, out=X)
     X /= power
     return X
@@ -354,6 +408,6 @@ def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np
 @functools.lru_cache(maxsize=8)
 def _weight_on_grid(n_fft: int, fs: int, f1_hz: float, f2_hz: float) -> np.ndarray:
     f = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    w = _regularisation_weight(f, f1_hz, f2_hz, fs / 2)
+    w = _edge_weight(f, f1_hz, f2_hz, fs / 2)
     w.setflags(write=False)
     return w
