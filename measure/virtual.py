@@ -8,14 +8,18 @@ rate; reflections are band-limited impulses placed exactly (to a fraction of a s
 they are asked for.
 
 :func:`virtual_take` "plays" a sweep file through it the way real equipment would: a
-memoryless loudspeaker nonlinearity, the room, a latency, a recording clock running fast or slow
-(drift), and background noise.
+memoryless loudspeaker nonlinearity (its harmonics above Nyquist never reach the recording, as
+a recorder's anti-alias filter removes them), the room, a latency, a recording clock running
+fast or slow (drift), and background noise that is white, pink or a low-frequency rumble
+(:func:`background_noise`). :func:`loudspeaker_ir` is a small loudspeaker without lows, to
+convolve with a room; :func:`impulsive_noise` a door or a cough to add to a take.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Literal
 
 import numpy as np
 
@@ -24,7 +28,12 @@ from measure._validate import check_fs, check_nonnegative, check_positive, check
 from measure.bands import complementary_masks
 from measure.errors import ParameterError
 
-__all__ = ["VirtualRoom", "room_ir", "virtual_take", "DEMO_ROOMS", "OCTAVE_CENTERS_HZ"]
+__all__ = ["VirtualRoom", "room_ir", "virtual_take", "background_noise", "loudspeaker_ir",
+           "impulsive_noise", "DEMO_ROOMS", "OCTAVE_CENTERS_HZ", "NOISE_KINDS"]
+
+NoiseKind = Literal["white", "pink", "rumble"]
+#: Background noises the virtual take can add (see :func:`background_noise`).
+NOISE_KINDS: tuple[str, ...] = ("white", "pink", "rumble")
 
 #: Exact base-10 octave mid-band frequencies 63 Hz–8 kHz (IEC 61260-1:2014, 5.2).
 OCTAVE_CENTERS_HZ: tuple[float, ...] = tuple(1000.0 * 10.0 ** (0.3 * k) for k in range(-4, 4))
@@ -140,8 +149,8 @@ def room_ir(room: VirtualRoom, fs: int, *, seed: int = 0) -> np.ndarray:
 
 def virtual_take(program: np.ndarray, fs: int, h: np.ndarray, *, latency_s: float = 0.0,
                  drift_ppm: float = 0.0, hd2_percent: float = 0.0, hd3_percent: float = 0.0,
-                 noise_dbfs: float | None = None, extra_s: float = 0.0, seed: int = 0
-                 ) -> np.ndarray:
+                 noise_dbfs: float | None = None, noise_kind: NoiseKind = "white",
+                 extra_s: float = 0.0, seed: int = 0) -> np.ndarray:
     """What a microphone records when ``program`` is played into the room ``h``.
 
     Parameters
@@ -163,9 +172,13 @@ def virtual_take(program: np.ndarray, fs: int, h: np.ndarray, *, latency_s: floa
         u = x + a2·x² + a3·x³. For x = A·sin θ the identities sin²θ = (1 − cos 2θ)/2 and
         sin³θ = (3 sin θ − sin 3θ)/4 give a fundamental A·g with g = 1 + 3·a3·A²/4, a second
         harmonic a2·A²/2 and a third a3·A³/4; hence a3 = 4·HD3/(A²·(1 − 3·HD3)) and
-        a2 = 2·HD2·g/A (derived).
+        a2 = 2·HD2·g/A (derived). The nonlinearity is applied at three times the sample rate
+        and filtered back (scipy.signal.resample_poly), so that harmonics above Nyquist are
+        not folded back into the band, as a recorder's anti-alias filter ensures.
     noise_dbfs : float or None, dBFS
-        RMS level of white background noise added at the microphone; None for none.
+        RMS level of the background noise added at the microphone; None for none.
+    noise_kind : {"white", "pink", "rumble"}
+        Its spectrum (:func:`background_noise`).
     extra_s : float, >= 0, s
         Extra recording after the program's end.
     seed : int
@@ -190,7 +203,12 @@ def virtual_take(program: np.ndarray, fs: int, h: np.ndarray, *, latency_s: floa
             raise ParameterError(f"hd3_percent={hd3_percent!r} must be below 33.3 %")
         a3 = 4.0 * hd3 / (peak**2 * (1.0 - 3.0 * hd3))
         a2 = 2.0 * hd2 * (1.0 + 0.75 * a3 * peak**2) / peak
-        x = x + a2 * x**2 + a3 * x**3
+        from scipy.signal import resample_poly
+
+        # the linear term exact; the products (up to 3f) computed at 3·fs and band-limited back
+        xu = resample_poly(x, 3, 1)
+        x = x + resample_poly(a2 * xu**2 + a3 * xu**3, 1, 3)[:x.size]
+        del xu
     from scipy.signal import fftconvolve
 
     z = fftconvolve(x, h)
@@ -206,9 +224,122 @@ def virtual_take(program: np.ndarray, fs: int, h: np.ndarray, *, latency_s: floa
         # the latency.
         y = interpolate(z, np.arange(n_out) / ratio - latency_s * fs)
     if noise_dbfs is not None:
-        rng = np.random.default_rng(seed)
-        y = y + 10.0 ** (noise_dbfs / 20.0) * rng.standard_normal(y.size)
+        y = y + background_noise(y.size, fs, level_dbfs=noise_dbfs, kind=noise_kind, seed=seed)
     return y
+
+
+#: Corner of the rumble spectrum, Hz: ventilation and traffic put most of their energy below
+#: about 100 Hz and fall steeply above (common practice for the shape; the corner is this
+#: scenario's choice).
+RUMBLE_CORNER_HZ = 50.0
+#: The rumble's broadband floor re its low-frequency plateau (the microphone's own hiss).
+RUMBLE_FLOOR_DB = -50.0
+
+
+def background_noise(n: int, fs: int, *, level_dbfs: float, kind: NoiseKind = "white",
+                     seed: int = 0) -> np.ndarray:
+    """Stationary Gaussian background noise of RMS ``level_dbfs`` and a given spectrum.
+
+    Parameters
+    ----------
+    n : int
+        Samples.
+    fs : int, Hz
+    level_dbfs : float, dBFS
+        RMS level of the whole noise.
+    kind : {"white", "pink", "rumble"}
+        ``white``: flat power density. ``pink``: power density ∝ 1/f, −3 dB per octave (flat
+        below 10 Hz). ``rumble``: ventilation or traffic, a plateau below
+        :data:`RUMBLE_CORNER_HZ` falling 12 dB per octave above it (power ∝
+        1/(1 + (f/f_c)⁴)), over a white floor :data:`RUMBLE_FLOOR_DB` below the plateau.
+    seed : int
+
+    Examples
+    --------
+    >>> z = background_noise(48000, 48000, level_dbfs=-40.0, kind="pink")
+    >>> round(20 * float(np.log10(np.sqrt(np.mean(z ** 2)))), 6)
+    -40.0
+    """
+    fs = check_fs(fs)
+    if kind not in NOISE_KINDS:
+        raise ParameterError(f"noise kind {kind!r} is not one of {', '.join(NOISE_KINDS)}")
+    rng = np.random.default_rng(seed)
+    z = rng.standard_normal(n)
+    if kind != "white" and n > 1:
+        n_fft = 1 << int(math.ceil(math.log2(n)))
+        Z = np.fft.rfft(rng.standard_normal(n_fft))
+        f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+        if kind == "pink":
+            power = 1.0 / np.maximum(f, 10.0)
+        else:
+            power = 1.0 / (1.0 + (f / RUMBLE_CORNER_HZ) ** 4) + 10.0 ** (RUMBLE_FLOOR_DB / 10.0)
+        z = np.fft.irfft(Z * np.sqrt(power), n_fft)[:n]
+    z *= 10.0 ** (level_dbfs / 20.0) / math.sqrt(float(np.mean(z * z)) + 1e-300)
+    return z
+
+
+def loudspeaker_ir(fs: int, *, highpass_hz: float, order: int = 2, length_s: float = 0.25
+                   ) -> np.ndarray:
+    """Impulse response of a small loudspeaker without lows: a Butterworth high-pass.
+
+    A small sealed box rolls off 12 dB per octave below its resonance (``order`` 2; a vented
+    one 24 dB, ``order`` 4; common practice). The response is causal and minimum-phase
+    (scipy.signal.butter, sosfilt of a unit impulse); convolve it with a room's response to get
+    what such a loudspeaker measures in that room.
+
+    Examples
+    --------
+    >>> g = loudspeaker_ir(48000, highpass_hz=200.0)
+    >>> G = np.abs(np.fft.rfft(g, 1 << 16)); f = np.fft.rfftfreq(1 << 16, 1 / 48000)
+    >>> round(20 * float(np.log10(G[np.argmin(abs(f - 200.0))])), 1)  # -3 dB at the corner
+    -3.0
+    """
+    from scipy.signal import butter, sosfilt
+
+    fs = check_fs(fs)
+    check_positive(highpass_hz, "high-pass corner", unit="Hz")
+    check_positive(length_s, "length", unit="s")
+    if not highpass_hz < fs / 2:
+        raise ParameterError(f"the high-pass corner {highpass_hz:g} Hz must be below Nyquist")
+    imp = np.zeros(max(int(round(length_s * fs)), 2))
+    imp[0] = 1.0
+    return sosfilt(butter(order, highpass_hz, "highpass", fs=fs, output="sos"), imp)
+
+
+def impulsive_noise(n: int, fs: int, *, at_s: float, level_dbfs: float,
+                    kind: Literal["door", "cough"] = "door", seed: int = 0) -> np.ndarray:
+    """A short disturbance to add to a take: a door slammed shut, or a cough.
+
+    ``door``: a thud, noise band-passed to 40 Hz–2 kHz with a 50 ms exponential decay, 0.4 s
+    long; ``cough``: two bursts of noise band-passed to 300 Hz–4 kHz, 0.12 s each, 0.25 s apart
+    (common practice for both shapes; the numbers are this scenario's choice). ``level_dbfs``
+    is the peak.
+    """
+    from scipy.signal import butter, sosfilt
+
+    fs = check_fs(fs)
+    check_nonnegative(at_s, "disturbance time", unit="s")
+    rng = np.random.default_rng(seed)
+    if kind == "door":
+        m = int(0.4 * fs)
+        b = rng.standard_normal(m) * np.exp(-np.arange(m) / fs / 0.05)
+        b = sosfilt(butter(2, [40.0, 2000.0], "bandpass", fs=fs, output="sos"), b)
+    elif kind == "cough":
+        m = int(0.37 * fs)
+        one = int(0.12 * fs)
+        env = np.zeros(m)
+        env[:one] = np.sin(np.pi * np.arange(one) / one)
+        env[int(0.25 * fs):int(0.25 * fs) + one] = 0.6 * np.sin(np.pi * np.arange(one) / one)
+        b = sosfilt(butter(2, [300.0, 4000.0], "bandpass", fs=fs, output="sos"),
+                    rng.standard_normal(m) * env)
+    else:
+        raise ParameterError(f"disturbance kind {kind!r} is not one of door, cough")
+    b *= 10.0 ** (level_dbfs / 20.0) / float(np.max(np.abs(b)))
+    out = np.zeros(n)
+    i = int(round(at_s * fs))
+    if i < n:
+        out[i:i + b.size] = b[:n - i]
+    return out
 
 
 def _octave_room(name: str, rt_s: tuple[float, ...], *, direct_delay_s: float, drr_db: float,
