@@ -28,7 +28,10 @@ from typing import Any, Literal
 import numpy as np
 
 from measure._validate import check_fs
-from measure.deconvolve import CLIP_LEVEL  # one clipping rule for takes, level check and IR
+from measure.deconvolve import (  # one clipping rule for takes, level check and IR
+    CLIP_LEVEL,
+    predicted_noise_power,
+)
 from measure.errors import DeviceError, MissingDependencyError, ParameterError
 
 __all__ = [
@@ -621,32 +624,6 @@ def _band_peak2(h: np.ndarray, fs: int, centre_hz: float) -> float:
     return float(np.max(hb ** 2))
 
 
-def _ir_noise_power(noise: np.ndarray, fs: int, spec: Any, weights: dict[float, np.ndarray] | None
-                    = None) -> tuple[float, dict[float, float], np.ndarray]:
-    """Noise power per sample in the impulse response that sweep ``spec`` would give.
-
-    For stationary noise of one-sided density S(f), the deconvolved noise h_n = n * f_inv has
-    variance (fs / N) · Σ_k S(f_k) |INV_k|² over the N/2+1 rfft bins of an N-point inverse
-    (Parseval; derived). S(f) is estimated from ``noise`` by Welch's method
-    (scipy.signal.welch), so the prediction holds for any sweep length, not only for lengths the
-    noise recording covers. ``weights`` maps band centres to |B(f)|⁴ on the same bins (the band
-    filter applied forward and backward).
-    """
-    from scipy.signal import welch
-
-    from measure.sweep import inverse_spectrum
-
-    n_fft = 1 << int(math.ceil(math.log2(spec.n_sweep + 1)))
-    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    inv2 = np.abs(inverse_spectrum(spec, n_fft)) ** 2
-    nper = int(min(noise.size, 4096))
-    fw, s = welch(noise, fs=fs, nperseg=nper, detrend=False)
-    s_f = np.interp(f, fw, s)
-    total = float(fs / n_fft * np.sum(s_f * inv2))
-    bands = {fc: float(fs / n_fft * np.sum(s_f * inv2 * w)) for fc, w in (weights or {}).items()}
-    return total, bands, f
-
-
 def _ratio_db(peak2: float, noise2: float) -> float | None:
     if not (noise2 > 0) or not (peak2 > 0):
         return None
@@ -661,7 +638,7 @@ def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[
     level, is the peak the take will have (a linear system's impulse response does not depend on
     the sweep's length). The noise the take's impulse response will carry is computed from the
     background noise recorded first: its spectrum times the take's own inverse filter
-    (:func:`_ir_noise_power`), divided by M for M averaged sweeps (measurement sheet §1.5).
+    (:func:`measure.deconvolve.predicted_noise_power`), divided by M for M averaged sweeps (measurement sheet §1.5).
     Both are also computed per octave.
     """
     fs = check_fs(fs)
@@ -703,12 +680,12 @@ def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[
         h = _deconvolve(seg, short)[:period]
         peak2 = float(np.max(h ** 2))
         # Found: the step's impulse stands clearly out of the noise its own short sweep gives.
-        step_noise, _, _ = _ir_noise_power(noise[ci], fs, short)
+        step_noise, _, _ = predicted_noise_power(noise[ci], fs, short)
         p_step = _ratio_db(peak2, step_noise)
         if p_step is None and peak2 > 0:
             p_step = math.inf  # digital silence around a clear impulse
         found.append(bool(p_step is not None and p_step > FOUND_PNR_DB))
-        take_noise, band_noise, _ = _ir_noise_power(noise[ci], fs, take_spec, weights)
+        take_noise, band_noise, _ = predicted_noise_power(noise[ci], fs, take_spec, weights)
         m = take_spec.repeats
         pnrs.append(_ratio_db(peak2 * scale2, take_noise / m))
         od: dict[float, float | None] = {

@@ -1,27 +1,33 @@
-"""Recording → impulse response: find the sweeps, remove clock drift, deconvolve, average.
+"""Recording → impulse response: locate, drift, window, read back and average, noise and length.
 
-Steps (all in :func:`recover_ir`):
+:func:`recover_ir` runs the stages in this order; each is a function of its own:
 
-1. Deconvolve the whole recording with the regularised inverse of one sweep
-   (:func:`measure.sweep.inverse_spectrum`). Every sweep in the recording turns into an impulse
-   response at its own position; its harmonic-distortion responses land L·ln N earlier [1]_.
-2. Find the sweeps: the strongest peak, then its neighbours one sweep period apart (with room
-   for up to ±300 ppm of drift); a recording with no peak well above its own noise (judged
-   where a whole sweep fits in the recording, see :data:`DETECTION_DB`) has no sweep.
-3. Estimate the drift ε between the player's and the recorder's clocks. With several sweeps it
-   follows from their spacing (sub-sample cross-correlation of consecutive responses); with one
-   it follows from the direct sound's group delay, which a drifting clock makes grow as
-   τ(f) = τ0 + ε·L·ln(f/f1) (measurement.md §1.6, derived there and verified numerically).
-4. Undo the drift in a window around each response: the dispersion that dividing by the nominal
-   sweep leaves is an all-pass whose phase follows in closed form from the sweep's stationary
-   phase (:func:`_dispersion_correction`); the stretch of the room response is undone by reading
-   the window's spectrum back on a scaled frequency grid (a chirp-z transform); and every repeat
-   is advanced by its fractional start with a linear phase, so the repeats are averaged
-   coherently to a fraction of a sample. Only the windows are processed, so the whole recording
-   is transformed once.
-5. Estimate the noise floor from the end of the window, the peak-to-noise ratio, the level of
-   each harmonic response relative to the linear one, and trim the response a little before the
-   direct sound and well into the noise.
+0. :func:`deconvolve_rows`: the whole recording is divided by the sweep once
+   (:func:`measure.sweep.inverse_spectrum`, a Kirkeby-regularised inverse that equals the ideal
+   in-band inverse inside [f1, f2] and does not amplify the noise outside it; its design is in
+   :mod:`measure.sweep`). Every sweep in the recording turns into an impulse response at its own
+   position; its harmonic-distortion responses land L·ln N earlier [1]_.
+1. **Locate** (:func:`locate_sweeps`): the strongest peak, then its neighbours one sweep period
+   apart (with room for up to ±300 ppm of drift); a recording with no peak well above its own
+   noise (:data:`DETECTION_DB`) has no sweep.
+2. **Drift** (:func:`estimate_timing`): with several sweeps ε follows from their spacing
+   (sub-sample cross-correlation of consecutive responses); with one, from the direct sound's
+   group delay, which a drifting clock makes grow as τ(f) = τ0 + ε·L·ln(f/f1) (measurement.md
+   §1.6). The result also fixes each repeat's direct sound to a fraction of a sample.
+3. **Window** (:func:`plan_window`): from a little before the direct sound to the next sweep's
+   earliest harmonic response, or to the end of the recording.
+4. **Read back and average** (:func:`aligned_spectra`, :func:`select_repeats`,
+   :func:`read_back`): each repeat's window is advanced by its fractional start with a linear
+   phase; repeats that an impulsive disturbance (a door, a cough) made differ from the others
+   are found band by band and left out; the rest are averaged as spectra; the drift's dispersion
+   is undone in closed form (:func:`_dispersion_correction`) and the stretch of the room
+   response by reading the window's spectrum back on a scaled frequency grid (a chirp-z
+   transform). Only the windows are processed, so the whole recording is transformed once.
+5. **Noise and length** (:func:`response_length`): in every octave band inside the sweep and
+   broadband, the decay's crossing with the noise is found by the method of Lundeby et al.
+   (:func:`measure.decay.lundeby`); the response is kept until the latest crossing and as much
+   noise after it, never cut before. When the window ends before a band's decay reaches the
+   noise, the response keeps the whole window and says so, with the gap the room would need.
 
 References
 ----------
@@ -29,6 +35,8 @@ References
    swept-sine technique", AES 108th Convention, 2000, preprint 5093.
 .. [2] S. Müller, P. Massarani, "Transfer-function measurement with sweeps", J. Audio Eng. Soc.
    49(6), 443–471, 2001.
+.. [3] A. Lundeby, T. E. Vigran, H. Bietz, M. Vorländer, "Uncertainties of measurements in room
+   acoustics", Acustica 81, 344–355, 1995.
 """
 
 from __future__ import annotations
@@ -43,9 +51,29 @@ import numpy as np
 from measure._dsp import parabolic_peak
 from measure._validate import check_nonnegative, check_positive
 from measure.errors import AudioFileError, ParameterError
-from measure.sweep import Sweep, inverse_spectrum
+from measure.sweep import Sweep, SweepSpec, inverse_spectrum
 
-__all__ = ["HarmonicDistortion", "ImpulseResponse", "recover_ir", "IR_FORMAT"]
+__all__ = [
+    "HarmonicDistortion",
+    "ImpulseResponse",
+    "ResponseContext",
+    "Timing",
+    "Window",
+    "Length",
+    "recover_ir",
+    "deconvolve_rows",
+    "locate_sweeps",
+    "estimate_timing",
+    "plan_window",
+    "aligned_spectra",
+    "select_repeats",
+    "read_back",
+    "response_length",
+    "predicted_noise_power",
+    "length_bands_hz",
+    "default_pre_s",
+    "IR_FORMAT",
+]
 
 IR_FORMAT = "measure.ir/1"
 #: Largest clock drift searched for when locating repeated sweeps.
@@ -75,6 +103,28 @@ CLIP_LEVEL = 32767.0 / 32768.0
 HARMONIC_PRE_S = 0.005
 #: Group-delay fit band for the single-sweep drift estimate (measurement.md §1.6).
 DRIFT_FIT_BAND_HZ = (1500.0, 14000.0)
+#: Noise kept after the latest crossing of a band's decay with the noise: at least this long,
+#: and at least as long as the decay before it, so that the analysis's own noise estimate
+#: (Lundeby et al. [3]_: from 10 dB of decay past the crossing to the end, at least the last
+#: 10 % of the response) rests on a long stretch of noise (common practice).
+NOISE_KEEP_MIN_S = 0.5
+#: A repeat differs from the others in a band and time block when its residual (its difference
+#: from the median of the repeats, or from the other repeat when there are two) stands this far
+#: above both the band's residual noise and :data:`DISTURBANCE_SIGNAL_DB` below the block's
+#: signal. Residual noise in blocks of at least 8 degrees of freedom (see select_repeats)
+#: exceeds its median by 15 dB with a probability below 1e-12 (χ² with 8 degrees of freedom,
+#: derived), so 15 dB is no false alarm; a disturbance that stays below it changes the average
+#: by less than the noise does (common practice for the margin).
+DISTURBANCE_DB = 15.0
+#: ... and a residual within 25 dB of the block's own signal is not a disturbance: it is the
+#: time variance of the room or a sub-sample misalignment of the direct sound (measured on
+#: drift-corrected virtual takes: the residual of a clean repeat stays 35 dB or more below
+#: the direct sound); a disturbance that weak moves a figure by less than 0.02 dB (derived:
+#: 10 lg(1 + 10^(-25/10)/3) for three repeats).
+DISTURBANCE_SIGNAL_DB = -25.0
+#: Octave bands the length stage follows (nominal centres; those inside the sweep are used).
+LENGTH_OCTAVES_HZ: tuple[float, ...] = (63.0, 125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0,
+                                        8000.0)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -87,20 +137,79 @@ class HarmonicDistortion:
         2 for the second harmonic, ...
     advance_s : float
         How far before the linear response it landed (L·ln order).
-    level_db : float
-        Energy ratio harmonic / fundamental over the excited band, in dB.
-    percent : float
-        The same as an amplitude ratio in percent (harmonic distortion at the sweep's level).
+    level_db : float or None
+        Energy ratio harmonic / fundamental over the excited band, in dB, with the noise's
+        share removed; None when the harmonic is not above the noise in its own window.
+    percent : float or None
+        The same as an amplitude ratio in percent (harmonic distortion at the sweep's level);
+        None when not above the noise.
+    above_noise : bool
+        The harmonic's window holds at least twice (3 dB more than) the energy the noise alone
+        puts there.
+    noise_percent : float or None
+        The level, in percent, that the noise alone reads as in this window: a harmonic below
+        the noise is below this (None when the noise could not be judged).
     """
 
     order: int
     advance_s: float
-    level_db: float
-    percent: float
+    level_db: float | None
+    percent: float | None
+    above_noise: bool = True
+    noise_percent: float | None = None
+
+    def describe(self) -> str:
+        """``H2 0.81 %`` or ``H3 below the noise (< 4.7 %)``."""
+        if self.above_noise and self.percent is not None:
+            return f"H{self.order} {self.percent:.2f} %"
+        if self.noise_percent is not None:
+            return f"H{self.order} below the noise (< {self.noise_percent:.2g} %)"
+        return f"H{self.order} not measurable"
 
     def to_dict(self) -> dict[str, Any]:
         return {"order": self.order, "advance_s": self.advance_s, "level_db": self.level_db,
-                "percent": self.percent}
+                "percent": self.percent, "above_noise": self.above_noise,
+                "noise_percent": self.noise_percent}
+
+
+@dataclass(frozen=True, slots=True)
+class ResponseContext:
+    """What the measurement excited and kept: read by the analysis to judge every band.
+
+    Attributes
+    ----------
+    f1_hz, f2_hz : float or None
+        The sweep's range; a band not inside it was not excited (None: unknown, e.g. an IR file
+        without a sidecar).
+    cut_s : float or None
+        The response ends this long after its direct sound because the recording did (the next
+        sweep, the end of the file, a length cap) before the decay reached the noise in some
+        band; None when every band's decay reached the noise, or when unknown.
+    cut_by : str
+        What ended it, in words ("the next sweep's distortion products", ...).
+    gap_needed_s : float or None
+        The silence after each sweep (``measure sweep --gap``) the room needs for its decay to
+        reach the noise in every band, when it could be estimated.
+    """
+
+    f1_hz: float | None = None
+    f2_hz: float | None = None
+    cut_s: float | None = None
+    cut_by: str = ""
+    gap_needed_s: float | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"f1_hz": self.f1_hz, "f2_hz": self.f2_hz, "cut_s": self.cut_s,
+                "cut_by": self.cut_by, "gap_needed_s": self.gap_needed_s}
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> ResponseContext:
+        def num(k: str) -> float | None:
+            v = d.get(k)
+            return float(v) if isinstance(v, (int, float)) and math.isfinite(v) else None
+
+        return cls(f1_hz=num("f1_hz"), f2_hz=num("f2_hz"), cut_s=num("cut_s"),
+                   cut_by=str(d.get("cut_by") or ""), gap_needed_s=num("gap_needed_s"))
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -125,9 +234,11 @@ class ImpulseResponse:
     drift_ppm : float
         Recorder clock against player clock, parts per million (positive: recorder fast).
     peak_to_noise_db : tuple of float
-        Per channel: peak power over the mean noise power at the end of the window, in dB.
+        Per channel: peak power over the mean power of the broadband noise after the decay
+        (a lower bound when ``noise_reached`` is False for that channel).
     noise_dbfs : tuple of float
-        Per channel: RMS noise level of the response, dB re full scale.
+        Per channel: RMS noise level of the response, dB re full scale (an upper bound when the
+        decay did not reach the noise).
     harmonics : tuple of tuple of HarmonicDistortion
         Per channel, orders 2 … n_harmonics + 1.
     harmonic_h : ndarray, (channels, n_harmonics, m)
@@ -141,6 +252,26 @@ class ImpulseResponse:
     reference_latency_s : float or None
         The reference channel's own latency (the interface's round trip), if any.
     warnings : tuple of str
+    f1_hz, f2_hz : float
+        The sweep's range (the band that was excited).
+    available_s : float
+        How long after the direct sound the recording allowed the response to run.
+    limited_by : str
+        What set ``available_s``, in words.
+    noise_reached : tuple of bool
+        Per channel: every followed band's decay reached the noise within the response.
+    unreached_bands : tuple of tuple of str
+        Per channel: the bands (nominal labels, "broadband") whose decay did not.
+    gap_needed_s : float or None
+        When some band's decay did not reach the noise: the gap after each sweep that the room
+        needs (``measure sweep --gap``), when it could be estimated.
+    repeats_found : int
+        Sweeps found in the recording.
+    repeats_left_out : tuple of (int, str)
+        1-based repeat numbers left out of the average and why.
+    origins : ndarray, (n_averaged,), float64
+        Where each averaged window starts in the nominal deconvolution of the recording (read
+        by :func:`read_back` to process another signal exactly as this one).
     """
 
     h: np.ndarray
@@ -158,23 +289,45 @@ class ImpulseResponse:
     reference_channel: int | None = None
     reference_latency_s: float | None = None
     warnings: tuple[str, ...] = ()
+    f1_hz: float | None = None
+    f2_hz: float | None = None
+    available_s: float | None = None
+    limited_by: str = ""
+    noise_reached: tuple[bool, ...] = ()
+    unreached_bands: tuple[tuple[str, ...], ...] = ()
+    gap_needed_s: float | None = None
+    repeats_found: int = 1
+    repeats_left_out: tuple[tuple[int, str], ...] = ()
+    origins: np.ndarray = field(default_factory=lambda: np.zeros(1), repr=False)
 
     def __post_init__(self) -> None:
         self.h.setflags(write=False)
         self.harmonic_h.setflags(write=False)
+        self.origins.setflags(write=False)
 
     @property
     def n_channels(self) -> int:
         return int(self.h.shape[0])
 
+    def context(self, row: int = 0) -> ResponseContext:
+        """What the analysis of row ``row`` of ``h`` needs to know about the measurement."""
+        reached = self.noise_reached[row] if self.noise_reached else True
+        cut = None if reached else (self.h.shape[1] - self.onset_index) / self.fs
+        return ResponseContext(f1_hz=self.f1_hz, f2_hz=self.f2_hz, cut_s=cut,
+                               cut_by="" if reached else self.limited_by,
+                               gap_needed_s=None if reached else self.gap_needed_s)
+
     def to_dict(self) -> dict[str, Any]:
         """The figures of the recovery (no samples), as written to IR.json."""
         per_channel = [
             {"capture_channel": c + 1, "latency_s": lat, "peak_to_noise_db": pnr,
-             "noise_dbfs": nz, "harmonic_distortion": [hd.to_dict() for hd in hds]}
-            for c, lat, pnr, nz, hds in zip(self.channels, self.latency_s,
-                                            self.peak_to_noise_db, self.noise_dbfs,
-                                            self.harmonics, strict=True)
+             "noise_dbfs": nz, "harmonic_distortion": [hd.to_dict() for hd in hds],
+             "noise_reached": (self.noise_reached[i] if self.noise_reached else None),
+             "bands_not_reaching_the_noise": (list(self.unreached_bands[i])
+                                              if self.unreached_bands else [])}
+            for i, (c, lat, pnr, nz, hds) in enumerate(zip(
+                self.channels, self.latency_s, self.peak_to_noise_db, self.noise_dbfs,
+                self.harmonics, strict=True))
         ]
         return {
             "sample_rate": self.fs,
@@ -185,20 +338,66 @@ class ImpulseResponse:
             "peak_to_noise_db": self.peak_to_noise_db[0],
             "harmonic_distortion": [hd.to_dict() for hd in self.harmonics[0]],
             "n_sweeps_averaged": self.n_averaged,
+            "n_sweeps_found": self.repeats_found,
+            "sweeps_left_out": [{"sweep": k, "reason": why} for k, why in self.repeats_left_out],
             "n_clipped_samples": self.n_clipped,
             "reference_channel": (None if self.reference_channel is None
                                   else self.reference_channel + 1),
             "reference_latency_s": self.reference_latency_s,
+            "response": {"available_s": self.available_s, "limited_by": self.limited_by,
+                         "gap_needed_s": self.gap_needed_s},
+            "context": self.context(0).to_dict(),
             "channels": per_channel,
             "warnings": list(self.warnings),
         }
 
+
+# ---------------------------------------------------------------------------------------------
+# 0. The whole recording, deconvolved once
 
 def _fft_len(n: int) -> int:
     from scipy.fft import next_fast_len
 
     return next_fast_len(n, real=True)
 
+
+def deconvolve_rows(y: np.ndarray, sweep: Sweep, rows: Sequence[int], *, first: int | None = None
+                    ) -> dict[int, np.ndarray]:
+    """The nominal deconvolution of each recording row in ``rows`` (linear, no wrap).
+
+    Parameters
+    ----------
+    y : ndarray, (channels, samples)
+    sweep : Sweep
+    rows : sequence of int
+        The rows of ``y`` to deconvolve; ``first`` (default ``rows[0]``) is transformed first.
+
+    Returns
+    -------
+    dict of int to ndarray
+        Row → its deconvolution, of length ``n_fft >= samples + n_sweep``: the linear response of
+        a sweep starting at sample s of the recording is at index s; harmonic responses at
+        negative lags wrap to the end.
+    """
+    from scipy.fft import irfft, rfft
+
+    rows = list(dict.fromkeys(rows))
+    if first is not None and first in rows:
+        rows.remove(first)
+        rows.insert(0, first)
+    n_fft = _fft_len(y.shape[1] + sweep.spec.n_sweep + 1)
+    inv = inverse_spectrum(sweep.spec, n_fft)
+    out = {}
+    for r in rows:  # one row's spectrum at a time keeps the peak memory low
+        Y = rfft(y[r], n_fft)
+        Y *= inv
+        out[r] = irfft(Y, n_fft)
+        del Y
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# 1. Locate
 
 def _noise_rms(d: np.ndarray) -> float:
     """Robust RMS of a deconvolved recording (median absolute deviation of Gaussian noise).
@@ -208,10 +407,24 @@ def _noise_rms(d: np.ndarray) -> float:
     return float(np.median(np.abs(d[::7]))) / 0.6745 + 1e-300
 
 
-def _find_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
-    """Integer positions of the linear responses of the sweeps, in order; raises if none."""
+def locate_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
+    """Integer positions of the linear responses of the sweeps in ``d``, in order.
+
+    Parameters
+    ----------
+    d : ndarray
+        Nominal deconvolution of the timing row (:func:`deconvolve_rows`).
+    sweep : Sweep
+    n_recorded : int
+        Length of the recording: linear responses lie at lags 0 … n_recorded − 1.
+
+    Raises
+    ------
+    AudioFileError
+        If no response stands :data:`DETECTION_DB` above the deconvolved noise.
+    """
     spec = sweep.spec
-    env = np.abs(d[:n_recorded])  # linear responses lie at lags 0 … n_recorded − 1
+    env = np.abs(d[:n_recorded])
     p = int(np.argmax(env))
     peak = float(env[p])
     # the lags at which a whole sweep was recorded, and at least MIN_NOISE_LAGS_S of them
@@ -220,9 +433,9 @@ def _find_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
     if not peak > noise * 10.0 ** (DETECTION_DB / 20.0):
         raise AudioFileError(
             f"no sweep found in the recording (its strongest response is only "
-            f"{20 * math.log10(peak / noise):.1f} dB above the noise, {DETECTION_DB:g} dB needed); "
-            "check that the microphone is connected and the right input is chosen, the "
-            "loudspeaker is on, and the recording matches this sweep file")
+            f"{20 * math.log10(max(peak, 1e-300) / noise):.1f} dB above the noise, "
+            f"{DETECTION_DB:g} dB needed); check that the microphone is connected and the right "
+            "input is chosen, the loudspeaker is on, and the recording matches this sweep file")
     P = spec.n_period
     R = spec.repeats
     present: dict[int, int] = {0: p}
@@ -250,6 +463,35 @@ def _find_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
         i0 = int(np.argmax(sums))
         found = found[i0:i0 + R]
     return np.asarray(found, dtype=np.int64)
+
+
+# ---------------------------------------------------------------------------------------------
+# 2. Drift and the direct sound's fine position
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Timing:
+    """The clock drift and where each found sweep's direct sound lies.
+
+    Attributes
+    ----------
+    eps : float
+        Drift ε (recorder fast by this fraction).
+    fine : ndarray
+        Fractional position of each found sweep's direct sound in the nominal deconvolution of
+        the timing row (on the recorder's clock).
+    window_start : int
+        Start of the short drift-corrected window ``window`` around the first direct sound.
+    window : ndarray
+        That window (drift-corrected, recorder clock): ``window_start + direct_in_window`` is
+        the first direct sound's integer position.
+    direct_in_window : int
+    """
+
+    eps: float
+    fine: np.ndarray
+    window_start: int
+    window: np.ndarray = field(repr=False)
+    direct_in_window: int = 0
 
 
 def _drift_from_spacing(d: np.ndarray, starts: np.ndarray, P: int, fs: int) -> float:
@@ -343,6 +585,594 @@ def _drift_from_phase(d: np.ndarray, p: int, sweep: Sweep, eps: float, *,
     return float(coef[2])
 
 
+def estimate_timing(d: np.ndarray, starts: np.ndarray, sweep: Sweep, *,
+                    correct_drift: bool = True) -> Timing:
+    """Drift ε and the fine position of every found sweep's direct sound (stage 2).
+
+    With two or more sweeps ε comes from their spacing; with one, from the group delay of the
+    direct sound, refined until it moves by less than 0.05 ppm (at most three passes). The
+    first sweep's direct sound is then found to a fraction of a sample on a drift-corrected
+    window and the others placed one (stretched) period apart.
+    """
+    spec = sweep.spec
+    fs = spec.fs
+    eps = 0.0
+    if correct_drift:
+        if starts.size >= 2:
+            eps = _drift_from_spacing(d, starts, spec.n_period, fs)
+        else:
+            eps = _drift_from_phase(d, _relocate(np.abs(d), int(starts[0]), sweep, fs),
+                                    sweep, 0.0)
+    radius = _search_radius(sweep, fs)
+    lo = int(starts[0]) - 2 * radius
+    for attempt in range(3):  # w always belongs to the final eps
+        w = _read_average(d, np.array([float(lo)]), 4 * radius, sweep, eps, unstretch=False)
+        p_w = _relocate(np.abs(w), 2 * radius, sweep, fs)
+        if not (correct_drift and starts.size == 1):
+            break
+        resid = _drift_from_phase(w, p_w, sweep, eps, symmetric=True)
+        if abs(resid) < 0.05e-6 or attempt == 2:
+            break
+        eps += resid
+    stretch = 1.0 + eps
+    p0_fine = lo + _fine_position(w, p_w)
+    k_idx = np.round((starts - starts[0]) / (spec.n_period * stretch)).astype(int)
+    fine = p0_fine + k_idx * spec.n_period * stretch
+    return Timing(eps=eps, fine=np.asarray(fine, dtype=np.float64), window_start=lo, window=w,
+                  direct_in_window=p_w)
+
+
+# ---------------------------------------------------------------------------------------------
+# 3. Window
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Window:
+    """Where the responses are read from the nominal deconvolution (stage 3).
+
+    Attributes
+    ----------
+    origins : ndarray
+        Fractional start of each found sweep's window (``pre`` before its direct sound).
+    pre : int
+        Samples kept before the direct sound.
+    n_after : int
+        Samples the recording allows after the direct sound (player's clock).
+    limited_by : str
+        What sets ``n_after``, in words.
+    """
+
+    origins: np.ndarray
+    pre: int
+    n_after: int
+    limited_by: str
+
+    @property
+    def n_len(self) -> int:
+        return self.pre + self.n_after
+
+
+def plan_window(timing: Timing, sweep: Sweep, n_recorded: int, *, pre: int, n_harmonics: int,
+                max_length_s: float | None = None) -> Window:
+    """The response window: ``pre`` before the direct sound to the next sweep's earliest
+    harmonic response (repeats), or to where the recording ends, or to ``max_length_s``.
+
+    Raises
+    ------
+    AudioFileError
+        If fewer than 50 ms remain after the direct sound.
+    """
+    spec = sweep.spec
+    fs = spec.fs
+    stretch = 1.0 + timing.eps
+    n_h = max(n_harmonics, 1)
+    # the next sweep's harmonic of order n_h + 1 lands L·ln(n_h + 1) before its linear
+    # response; the window stops 10 ms short of it and of that harmonic's own pre-time
+    gap_inner = spec.n_period - spec.rate_constant_s * fs * math.log(n_h + 1) - pre - 0.01 * fs
+    after_last = (n_recorded - timing.fine[-1]) / stretch - spec.n_sweep - 0.001 * fs
+    limits = [(after_last, "the end of the recording")]
+    if spec.repeats > 1:
+        limits.append((gap_inner, "the next sweep's distortion products"))
+    if max_length_s is not None:
+        limits.append((max_length_s * fs, f"the length limit of {max_length_s:g} s"))
+    n_after_f, why = min(limits, key=lambda t: t[0])
+    n_after = int(n_after_f)
+    if n_after < int(0.05 * fs):
+        raise AudioFileError(
+            f"the recording keeps only {max(n_after, 0) / fs * 1000:.0f} ms after the last sweep; "
+            "record the whole file including the silence after the sweep (use a longer --gap)")
+    return Window(origins=timing.fine - pre * stretch, pre=pre, n_after=n_after, limited_by=why)
+
+
+# ---------------------------------------------------------------------------------------------
+# 4. Read back and average
+
+def _search_radius(sweep: Sweep, fs: int) -> int:
+    """How far drift can move the direct sound in a response deconvolved without correction."""
+    spec = sweep.spec
+    return int(0.002 * fs + MAX_DRIFT_PPM * 1e-6 * spec.rate_constant_s * fs
+               * (math.log(spec.f2_hz / spec.f1_hz) + 1.0))
+
+
+def _dispersion_correction(n_fft: int, sweep: Sweep, eps: float) -> np.ndarray:
+    """rfft-domain factor X/X_s that turns a nominal deconvolution into a drift-free one.
+
+    A recorder running ε fast records the sweep with rate constant L(1+ε) samples and start
+    frequency f1/(1+ε). By stationary phase the spectrum of an exponential sweep has phase
+    ψ(ν) = 2πL(ν − ν1 − ν·ln(ν/ν1)) (ν in cycles per sample, L in samples) [1]_, so dividing
+    the recording by the nominal sweep instead of the stretched one leaves the factor
+    X_s/X = √(1+ε)·exp(jΔψ), Δψ(ν) = 2πLν[ε − ε·ln(ν/ν1) − (1+ε)·ln(1+ε)] (derived), whose
+    group delay is the ε·L·(ln(ν/ν1)+1) of measurement.md §1.6. This returns its inverse.
+    """
+    spec = sweep.spec
+    L = spec.rate_constant_s * spec.fs
+    nu1 = spec.f1_hz / spec.fs
+    nu = np.arange(n_fft // 2 + 1) / n_fft
+    with np.errstate(divide="ignore"):
+        lnr = np.log(np.maximum(nu, 1e-12) / nu1)
+    dpsi = 2 * np.pi * L * nu * (eps - eps * lnr - (1 + eps) * math.log1p(eps))
+    return np.exp(-1j * dpsi) / math.sqrt(1.0 + eps)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Spectra:
+    """Aligned window spectra of one row: ``spectra[k]`` is window k, advanced by its fraction."""
+
+    spectra: list
+    n_fft: int
+    margin: int
+    n_out: int
+
+
+def aligned_spectra(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep,
+                    eps: float) -> _Spectra:
+    """The spectrum of each window of ``row`` starting at fractional ``origins``, aligned.
+
+    Each window is advanced by its fractional start with a linear phase (exact at every
+    frequency), so the windows can be compared and averaged sample for sample. A margin on both
+    sides leaves room for the drift's dispersion; negative positions wrap to the end of ``row``
+    (negative lags).
+    """
+    from scipy.fft import next_fast_len, rfft
+
+    stretch = 1.0 + eps
+    margin = int(_search_radius(sweep, sweep.fs)) + 64
+    n_seg = int(math.ceil(n_out * stretch)) + 2 * margin
+    n_fft = next_fast_len(n_seg + margin, real=True)
+    k = np.arange(n_fft // 2 + 1)
+    out = []
+    for o in origins:
+        base = int(math.floor(o))
+        frac = o - base
+        seg = row.take(np.arange(base - margin, base - margin + n_seg), mode="wrap")
+        S = rfft(seg, n_fft)
+        if frac:
+            S *= np.exp(2j * np.pi * k * frac / n_fft)
+        out.append(S)
+    return _Spectra(out, n_fft, margin, n_out)
+
+
+def select_repeats(per_channel: Sequence[_Spectra], fs: int, *, pre: int,
+                   bands_hz: Sequence[float]) -> tuple[list[int], list[tuple[int, str]]]:
+    """Leave out the repeats that a disturbance made differ from the others (robust averaging).
+
+    For every channel, octave band (complementary masks over ``bands_hz``; broadband when empty)
+    and block of time (at least 20 ms and 4/B, i.e. at least 8 degrees of freedom for a band of
+    width B), the residual of each repeat is its difference from the sample-wise median of the
+    repeats (with two repeats, from the other one, halved). A repeat is disturbed where its
+    residual energy exceeds :data:`DISTURBANCE_DB` above both the band's median residual (its
+    noise) and :data:`DISTURBANCE_SIGNAL_DB` below the block's median signal energy. With two
+    repeats the one with more energy in the disturbed blocks is left out.
+
+    Returns
+    -------
+    keep : list of int
+        0-based repeats averaged (never empty).
+    left_out : list of (int, str)
+        1-based repeat numbers and why each was left out.
+    """
+    from scipy.fft import irfft
+
+
+    n_rep = len(per_channel[0].spectra) if per_channel else 0
+    if n_rep < 2:
+        return list(range(n_rep)), []
+    sp0 = per_channel[0]
+    f = np.fft.rfftfreq(sp0.n_fft, 1.0 / fs)
+    centres = list(bands_hz)
+    masks = (_band_masks(centres, f) if centres else np.ones((1, f.size)))
+    widths = [c * (2 ** 0.5 - 2 ** -0.5) for c in centres] or [fs / 2]
+    score = np.zeros(n_rep)
+    where: list[list[str]] = [[] for _ in range(n_rep)]
+    for sp in per_channel:
+        for b, mask in enumerate(masks):
+            x = np.array([irfft(S * mask, sp.n_fft)[sp.margin:sp.margin + sp.n_out]
+                          for S in sp.spectra])
+            block = max(int(0.02 * fs), int(math.ceil(4.0 * fs / widths[b])))
+            nb = x.shape[1] // block
+            if nb < 2:
+                continue
+            x = x[:, :nb * block]
+            if n_rep >= 3:
+                res = x - np.median(x, axis=0)
+            else:
+                half = 0.5 * (x[0] - x[1])
+                res = np.array([half, -half])
+            r_e = np.mean(res.reshape(n_rep, nb, block) ** 2, axis=2)
+            s_e = np.median(np.mean(x.reshape(n_rep, nb, block) ** 2, axis=2), axis=0)
+            noise = float(np.median(r_e)) + 1e-300
+            limit = (np.maximum(noise, s_e * 10.0 ** (DISTURBANCE_SIGNAL_DB / 10.0))
+                     * 10.0 ** (DISTURBANCE_DB / 10.0))
+            hit = r_e > limit[np.newaxis, :]
+            if not hit.any():
+                continue
+            if n_rep == 2:
+                cells = hit[0]
+                e_k = np.mean(x.reshape(2, nb, block) ** 2, axis=2)[:, cells].sum(axis=1)
+                who = [int(np.argmax(e_k))]
+            else:
+                who = [int(k) for k in np.nonzero(hit.any(axis=1))[0]]
+            label = f"{centres[b]:g} Hz" if centres else "broadband"
+            for k in who:
+                worst = int(np.argmax(np.where(hit[k] if n_rep > 2 else hit[0], r_e[k], 0.0)))
+                t_s = (worst * block + block / 2 - pre) / fs
+                score[k] += 1
+                where[k].append(f"{label} at {t_s:.2f} s")
+    keep = [k for k in range(n_rep) if score[k] == 0]
+    if not keep:  # every repeat disturbed somewhere: keep the least disturbed ones
+        least = score.min()
+        keep = [k for k in range(n_rep) if score[k] == least]
+    left_out = [(k + 1, "it differs from the other sweeps by more than the noise allows ("
+                 + ", ".join(where[k][:3]) + (" ..." if len(where[k]) > 3 else "")
+                 + "): an impulsive disturbance (a door, a cough, a step)?")
+                for k in range(n_rep) if k not in keep]
+    return keep, left_out
+
+
+def _band_masks(centres_hz: Sequence[float], f_hz: np.ndarray) -> np.ndarray:
+    """Octave masks that add up to one between the outer band edges and fall to zero outside
+    them (a raised cosine over 1/6 octave): complementary masks
+    (:func:`measure.bands.complementary_masks`) whose lowest and highest bands stop at their
+    own edges rather than at DC and Nyquist."""
+    from measure.bands import complementary_masks
+
+    masks = complementary_masks(list(centres_hz), f_hz, transition_octaves=1.0 / 3.0)
+    lf = np.log2(np.maximum(f_hz, 1e-6))
+    lo, hi = math.log2(centres_hz[0]) - 0.5, math.log2(centres_hz[-1]) + 0.5
+    w = 1.0 / 6.0
+    span = (np.clip((lf - lo) / w + 0.5, 0.0, 1.0) * np.clip((hi - lf) / w + 0.5, 0.0, 1.0))
+    masks *= np.sin(0.5 * np.pi * span) ** 2
+    return masks
+
+
+def _finish(acc: np.ndarray, sp: _Spectra, sweep: Sweep, eps: float, n_out: int, *,
+            unstretch: bool) -> np.ndarray:
+    """An averaged window spectrum → the response on the player's clock (or the recorder's).
+
+    The drift's dispersion is undone (:func:`_dispersion_correction`) and, with ``unstretch``,
+    the window is read back at steps of 1+ε samples by a chirp-z transform (the DFT evaluated on
+    a scaled frequency grid), which undoes the stretch of the room response without the
+    high-frequency loss of an interpolator.
+    """
+    from scipy.fft import irfft
+
+    n_fft, margin = sp.n_fft, sp.margin
+    if eps:
+        acc = acc * _dispersion_correction(n_fft, sweep, eps)
+    if not unstretch:
+        return irfft(acc, n_fft)[margin:margin + n_out]
+    # u[m] = (1/N)·Re Σ_k c_k·exp(j2πk(margin + m·stretch)/N), c_k = 2·S_k (1 at DC and Nyquist)
+    k = np.arange(n_fft // 2 + 1)
+    c = acc * np.exp(2j * np.pi * k * margin / n_fft)
+    c[1:] *= 2.0
+    if n_fft % 2 == 0:
+        c[-1] *= 0.5
+    return _chirp_sum(c, n_out, 2 * np.pi * (1.0 + eps) / n_fft).real / n_fft
+
+
+def _mean_of(sp: _Spectra, keep: Sequence[int]) -> np.ndarray:
+    acc = np.zeros_like(sp.spectra[0])
+    for k in keep:
+        acc += sp.spectra[k]
+    acc /= len(keep)
+    return acc
+
+
+def read_back(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep, eps: float, *,
+              keep: Sequence[int] | None = None, unstretch: bool = True) -> np.ndarray:
+    """The average of the windows of ``row`` at ``origins`` (those in ``keep``), drift removed.
+
+    This is stage 4 for one row with the repeats already chosen; :func:`recover_ir` uses it
+    through its parts. Given the ``origins`` and ``drift_ppm`` of an :class:`ImpulseResponse`,
+    it processes any other deconvolved signal (e.g. the noise part of a virtual take) exactly as
+    that response was processed.
+    """
+    sp = aligned_spectra(row, origins, n_out, sweep, eps)
+    keep = range(len(origins)) if keep is None else keep
+    return _finish(_mean_of(sp, keep), sp, sweep, eps, n_out, unstretch=unstretch)
+
+
+def _read_average(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep, eps: float,
+                  *, unstretch: bool) -> np.ndarray:
+    return read_back(row, origins, n_out, sweep, eps, unstretch=unstretch)
+
+
+def _chirp_sum(c: np.ndarray, m: int, alpha: float) -> np.ndarray:
+    """X_j = Σ_k c_k·exp(i·alpha·k·j), j = 0 … m−1, by Bluestein's chirp-z algorithm.
+
+    The chirp's phase is computed in float64 and reduced mod 2π before the exponential, which
+    keeps it exact to ~1e-10 rad even for k² ~ 1e11.
+    """
+    from scipy.fft import fft, ifft, next_fast_len
+
+    K = c.size
+    n = next_fast_len(K + m - 1)
+    kk = np.arange(max(K, m), dtype=np.float64)
+    chirp = np.exp(1j * np.mod(0.5 * alpha * kk * kk, 2 * np.pi))
+    a = np.zeros(n, dtype=np.complex128)
+    a[:K] = c * chirp[:K]
+    b = np.zeros(n, dtype=np.complex128)
+    b[:m] = np.conj(chirp[:m])
+    b[n - K + 1:] = np.conj(chirp[1:K][::-1])
+    a = fft(a, overwrite_x=True)
+    a *= fft(b, overwrite_x=True)
+    del b
+    out = ifft(a, overwrite_x=True)[:m]
+    out *= chirp[:m]
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# 5. Noise and length
+
+def length_bands_hz(f1_hz: float, f2_hz: float, fs: int) -> tuple[float, ...]:
+    """Exact mid-band frequencies of the octaves in :data:`LENGTH_OCTAVES_HZ` that lie inside
+    [f1, f2] and below Nyquist (IEC 61260-1 base-10 octaves)."""
+    out = []
+    for nom in LENGTH_OCTAVES_HZ:
+        fc = 1000.0 * 10.0 ** (0.3 * round(10.0 * math.log10(nom / 1000.0) / 3.0))
+        if fc / 2 ** 0.5 >= f1_hz * 0.999 and fc * 2 ** 0.5 <= min(f2_hz, 0.5 * fs) * 1.001:
+            out.append(fc)
+    return tuple(out)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Length:
+    """Result of the noise-and-length stage (5) for every channel.
+
+    Attributes
+    ----------
+    end : int
+        Samples to keep (from the window's start).
+    noise_power : tuple of float
+        Per channel: mean power of the broadband noise after the decay (of the last tenth of
+        the response when the decay did not reach it).
+    noise_reached : tuple of bool
+    unreached : tuple of tuple of str
+        Per channel: labels of the bands whose decay did not reach the noise.
+    crossing_s : tuple of float or None
+        Per channel: the latest crossing, s after the direct sound (None when some band did
+        not cross).
+    late_fits : tuple of dict
+        Per channel: label → (late decay line's level at the window's end, dB re full scale
+        per sample, and its slope, dB/s) of the bands that did not reach the noise (for the
+        gap estimate).
+    """
+
+    end: int
+    noise_power: tuple[float, ...]
+    noise_reached: tuple[bool, ...]
+    unreached: tuple[tuple[str, ...], ...]
+    crossing_s: tuple[float | None, ...]
+    late_fits: tuple[dict[str, tuple[float, float]], ...]
+
+
+def _band_label(fc: float) -> str:
+    nominal = min(LENGTH_OCTAVES_HZ, key=lambda n: abs(math.log(n / fc)))
+    return f"{nominal / 1000:g}k" if nominal >= 1000 else f"{nominal:g}"
+
+
+def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[float]) -> Length:
+    """Where each band's decay meets the noise, and how much of the window to keep (stage 5).
+
+    Each row of ``h`` (direct sound at ``pre``) is split into the octave bands ``bands_hz``
+    (complementary masks, :func:`measure.bands.complementary_masks`) and analysed broadband;
+    in each, Lundeby's method (:func:`measure.decay.lundeby`) finds the crossing of the decay
+    with the noise. The response is kept to the latest crossing plus as much noise again (at
+    least :data:`NOISE_KEEP_MIN_S`), within the window. A band whose decay is still falling at
+    the end of the window, or crosses the noise with less than a tenth of the window left for
+    the noise, has not reached it: the whole window is kept.
+    """
+    from scipy.fft import irfft, rfft
+
+    from measure.bands import complementary_masks
+    from measure.decay import lundeby
+
+    n = h.shape[1]
+    n_body = n - pre
+    n_fft = _fft_len(n)
+    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    masks = (complementary_masks(list(bands_hz), f, transition_octaves=1.0 / 3.0)
+             if bands_hz else np.zeros((0, f.size)))
+    labels = [_band_label(fc) for fc in bands_hz] + ["broadband"]
+    latest = 0
+    noise_p, reached_all, unreached_all, cross_all, fits_all = [], [], [], [], []
+    for row in h:
+        H = rfft(row, n_fft)
+        signals = [irfft(H * m, n_fft)[pre:n] for m in masks] + [row[pre:]]
+        del H
+        unreached: list[str] = []
+        fits: dict[str, tuple[float, float]] = {}
+        row_latest = 0
+        broadband_noise = None
+        for lab, x in zip(labels, signals, strict=True):
+            nf = lundeby(x, fs)
+            tc = nf.truncation_index
+            room = n_body - tc
+            ok = (nf.ok and nf.noise_floor_found and tc < n_body
+                  and room >= max(int(0.1 * n_body), int(0.05 * fs)))
+            if ok:
+                row_latest = max(row_latest, tc)
+                if lab == "broadband":
+                    broadband_noise = nf.noise_power
+            elif nf.late_fit_db is not None or not nf.ok:
+                unreached.append(lab)
+                if nf.late_fit_db is not None:
+                    a_db, b_db = nf.late_fit_db  # per-sample energy, absolute
+                    fits[lab] = (a_db + b_db * n_body / fs, b_db)
+        if broadband_noise is None:
+            tail = row[-max(n // 10, 1):]
+            broadband_noise = float(np.mean(tail * tail))
+        noise_p.append(float(broadband_noise) + 1e-300)
+        reached_all.append(not unreached)
+        unreached_all.append(tuple(unreached))
+        cross_all.append(None if unreached else row_latest / fs)
+        fits_all.append(fits)
+        if unreached:
+            latest = n_body
+        else:
+            keep = max(2 * row_latest, row_latest + int(NOISE_KEEP_MIN_S * fs))
+            latest = max(latest, keep)
+    end = min(n, pre + latest)
+    return Length(end=int(end), noise_power=tuple(noise_p), noise_reached=tuple(reached_all),
+                  unreached=tuple(unreached_all), crossing_s=tuple(cross_all),
+                  late_fits=tuple(fits_all))
+
+
+def predicted_noise_power(noise: np.ndarray, fs: int, spec: SweepSpec,
+                          weights: dict[float, np.ndarray] | None = None
+                          ) -> tuple[float, dict[float, float], np.ndarray]:
+    """Noise power per sample in the impulse response that sweep ``spec`` would give.
+
+    For stationary noise of one-sided density S(f), the deconvolved noise h_n = n * f_inv has
+    variance (fs / N) · Σ_k S(f_k) |INV_k|² over the N/2+1 rfft bins of an N-point inverse
+    (Parseval; derived). S(f) is estimated from ``noise`` by Welch's method
+    (scipy.signal.welch), so the prediction holds for any sweep length, not only for lengths the
+    noise recording covers. ``weights`` maps band centres to |B(f)|⁴ on the returned bins (the
+    band filter applied forward and backward, or any band weighting).
+
+    Returns
+    -------
+    (total, per_band, f_hz)
+        Broadband noise power, noise power per band of ``weights``, and the bins' frequencies.
+    """
+    from scipy.signal import welch
+
+    n_fft = 1 << int(math.ceil(math.log2(spec.n_sweep + 1)))
+    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    inv2 = np.abs(inverse_spectrum(spec, n_fft)) ** 2
+    nper = int(min(noise.size, 4096))
+    fw, s = welch(noise, fs=fs, nperseg=nper, detrend=False)
+    s_f = np.interp(f, fw, s)
+    total = float(fs / n_fft * np.sum(s_f * inv2))
+    bands = {fc: float(fs / n_fft * np.sum(s_f * inv2 * w)) for fc, w in (weights or {}).items()}
+    return total, bands, f
+
+
+def _gap_needed_s(length: Length, leadin: Sequence[np.ndarray | None], sweep: Sweep,
+                  window: Window, n_used: int, n_harmonics: int, arrival_s: float,
+                  bands_hz: Sequence[float]) -> float | None:
+    """The ``--gap`` a room needs for every band's decay to reach the noise, or None.
+
+    For each band that did not reach the noise, its late decay line is continued from the
+    window's end down to the band's noise, predicted from the recording's quiet lead-in
+    (:func:`predicted_noise_power` with the band's mask, divided by the sweeps averaged), plus
+    :data:`NOISE_KEEP_MIN_S` of noise; without a lead-in of 0.1 s, 1.5 times the band's decay
+    time (the common rule for the gap). The gap is what gives the window that length, for a
+    single sweep (the arrival after the sweep's start adds to it) and between repeats (the next
+    sweep's distortion products end it, see :func:`plan_window`), rounded up to 0.5 s.
+    """
+    from measure.bands import complementary_masks
+
+    spec = sweep.spec
+    fs = spec.fs
+    need_s = 0.0
+    for ci, fits in enumerate(length.late_fits):
+        if not fits:
+            continue
+        pred: dict[str, float] = {}
+        seg = leadin[ci] if ci < len(leadin) else None
+        if seg is not None and seg.size >= int(0.1 * fs):
+            n_fft = 1 << int(math.ceil(math.log2(spec.n_sweep + 1)))
+            f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+            masks = (complementary_masks(list(bands_hz), f, transition_octaves=1.0 / 3.0)
+                     if bands_hz else np.zeros((0, f.size)))
+            weights = {fc: m * m for fc, m in zip(bands_hz, masks, strict=True)}
+            total, per, _ = predicted_noise_power(seg, fs, spec, weights)
+            pred = {_band_label(fc): v / n_used for fc, v in per.items()}
+            pred["broadband"] = total / n_used
+        for lab, (end_db, slope) in fits.items():
+            if not slope < 0:
+                continue
+            if pred.get(lab, 0.0) > 0:
+                fall_db = max(0.0, end_db - 10.0 * math.log10(pred[lab]))
+                t = window.n_after / fs + fall_db / -slope + NOISE_KEEP_MIN_S
+            else:
+                t = 1.5 * (-60.0 / slope)
+            need_s = max(need_s, t)
+    if not need_s > 0:
+        return None
+    gap = need_s + arrival_s + 0.01
+    if spec.repeats > 1:
+        gap = max(gap, need_s + spec.rate_constant_s * math.log(max(n_harmonics, 1) + 1)
+                  + window.pre / fs + 0.01 - spec.duration_s)
+    return math.ceil(2.0 * max(gap, spec.gap_s + 0.5)) / 2.0
+
+
+# ---------------------------------------------------------------------------------------------
+# Harmonic distortion, judged against the noise in its own window
+
+def _energy_spectrum(x: np.ndarray, n_seg: int) -> np.ndarray:
+    """Mean |rfft|² over pieces of ``x``, scaled to pieces of ``n_seg`` samples (bins of an
+    ``n_seg``-point rfft): for stationary noise E|X_k|² grows with the piece's length."""
+    m = min(n_seg, x.size)
+    k = min(max(x.size // m, 1), 16)
+    pieces = x[x.size - k * m:].reshape(k, m)
+    e = np.mean(np.abs(np.fft.rfft(pieces, axis=1)) ** 2, axis=0) * (n_seg / m)
+    return np.interp(np.fft.rfftfreq(n_seg), np.fft.rfftfreq(m), e)
+
+
+def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *, pre: int,
+                    pre_h: int, post: int, noise: np.ndarray | None) -> HarmonicDistortion:
+    """Energy of harmonic ``order`` at N·f over the fundamental's at f, over the excited band.
+
+    ``h1`` and ``hn`` have their direct sounds at index ``pre``; ``hn`` holds data from
+    ``pre − pre_h`` on. Both are compared up to ``post`` samples (at most 0.5 s) after their
+    direct sounds, so a room's reverberation weighs equally in both; ``h1`` keeps all its time
+    before the direct sound, where its band limit at f1 rings. ``noise`` (a stretch of the
+    response that holds its noise) gives the energy the noise alone puts in a window as long
+    as the harmonic's: the harmonic counts only when its window holds at least twice that
+    (3 dB above), and then with the noise's share subtracted.
+    """
+    spec = sweep.spec
+    fs = spec.fs
+    post = max(min(post, int(0.5 * fs), h1.size - pre), 1)
+    H1 = np.abs(np.fft.rfft(h1[:pre + post])) ** 2
+    n_h = pre_h + post
+    HN = np.abs(np.fft.rfft(hn[pre - pre_h:pre + post])) ** 2
+    f1_grid = np.fft.rfftfreq(pre + post, 1.0 / fs)
+    f = np.fft.rfftfreq(n_h, 1.0 / fs)
+    top = min(spec.f2_hz, 0.95 * fs / 2) / order
+    lo = 2.0 * spec.f1_hz
+    grid = np.geomspace(lo, top, 200) if top > lo * 1.5 else np.array([])
+    adv = spec.harmonic_advance_s(order)
+    if grid.size == 0:
+        return HarmonicDistortion(order, adv, None, None, False, None)
+    p1 = float(np.sum(np.interp(grid, f1_grid, H1))) + 1e-300
+    pn = float(np.sum(np.interp(order * grid, f, HN)))
+    pz = 0.0
+    if noise is not None and noise.size >= 16:
+        pz = float(np.sum(np.interp(order * grid, f, _energy_spectrum(noise, n_h))))
+    if pz > 0 and not pn > 2.0 * pz:
+        return HarmonicDistortion(order, adv, None, None, False, 100.0 * math.sqrt(pz / p1))
+    ratio = max(pn - pz, 0.0) / p1
+    return HarmonicDistortion(order, adv, 10 * math.log10(ratio + 1e-300),
+                              100.0 * math.sqrt(ratio), True,
+                              100.0 * math.sqrt(pz / p1) if pz > 0 else None)
+
+
+# ---------------------------------------------------------------------------------------------
+# The pipeline
+
 def default_pre_s(f1_hz: float) -> float:
     """Time kept before the direct sound by default: two periods of f1, at least 5 ms."""
     return max(0.005, 2.0 / f1_hz)
@@ -352,7 +1182,7 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
                reference_channel: int | None = None, n_harmonics: int = 4,
                pre_s: float | None = None, correct_drift: bool = True,
                max_length_s: float | None = None) -> ImpulseResponse:
-    """Recover impulse responses from a recording of ``sweep``.
+    """Recover impulse responses from a recording of ``sweep`` (stages in the module notes).
 
     Parameters
     ----------
@@ -422,93 +1252,67 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
         channels = [c for c in range(n_ch) if c != reference_channel] or [0]
     channels = list(channels)
     warnings: list[str] = []
-    used = sorted(set(channels) | ({reference_channel} if reference_channel is not None else set()))
     n_clipped = int(np.count_nonzero(np.abs(y2[channels]) >= CLIP_LEVEL))
     if n_clipped:
         warnings.append(
             f"{n_clipped} recorded samples are at or beyond full scale (clipped); lower the "
             "playback level or the input gain and record again")
-
-    from scipy.fft import irfft, rfft
-
-    n_fft = _fft_len(n_rec + spec.n_sweep + 1)
-    rows = {c: i for i, c in enumerate(used)}
-    Y = rfft(y2 if used == list(range(n_ch)) else y2[used], n_fft, axis=-1)
     if reference_channel is not None:
-        timing = reference_channel
+        timing_row = reference_channel
     else:
         energy = np.sum(y2[channels] ** 2, axis=-1)
-        timing = channels[int(np.argmax(energy))]
+        timing_row = channels[int(np.argmax(energy))]
 
-    # 1–2: locate the sweeps with the nominal inverse
-    inv = inverse_spectrum(spec, n_fft)
-    Y[rows[timing]] *= inv  # each row is deconvolved once, in place
-    d = {timing: irfft(Y[rows[timing]], n_fft)}
-    d_t = d[timing]
-    for c in channels:  # every channel deconvolved now, so the spectra can go
-        if c not in d:
-            Y[rows[c]] *= inv
-            d[c] = irfft(Y[rows[c]], n_fft)
-    del Y, inv
-    starts = _find_sweeps(d_t, sweep, n_rec)
+    # 0-2: deconvolve, locate the sweeps, the drift and the direct sounds
+    d = deconvolve_rows(y2, sweep, channels + ([] if reference_channel is None
+                                               else [reference_channel]), first=timing_row)
+    d_t = d[timing_row]
+    starts = locate_sweeps(d_t, sweep, n_rec)
     if starts.size < spec.repeats:
         warnings.append(
             f"only {starts.size} of the {spec.repeats} sweeps were found in the recording; "
             "the response is the average of those")
-
-    # 3: drift, then the direct sound's fine position on the drift-corrected response
-    eps = 0.0
-    if correct_drift:
-        if starts.size >= 2:
-            eps = _drift_from_spacing(d_t, starts, spec.n_period, fs)
-        else:
-            eps = _drift_from_phase(d_t, _relocate(np.abs(d_t), int(starts[0]), sweep, fs),
-                                    sweep, 0.0)
-    radius = _search_radius(sweep, fs)
-    lo = int(starts[0]) - 2 * radius
-    for attempt in range(3):  # w always belongs to the final eps
-        w = _read_average(d_t, np.array([float(lo)]), 4 * radius, sweep, eps, unstretch=False)
-        p_w = _relocate(np.abs(w), 2 * radius, sweep, fs)
-        if not (correct_drift and starts.size == 1):
-            break
-        resid = _drift_from_phase(w, p_w, sweep, eps, symmetric=True)
-        if abs(resid) < 0.05e-6 or attempt == 2:
-            break
-        eps += resid
+    tm = estimate_timing(d_t, starts, sweep, correct_drift=correct_drift)
+    eps = tm.eps
     stretch = 1.0 + eps
-    p0_fine = lo + _fine_position(w, p_w)
-    k_idx = np.round((starts - starts[0]) / (spec.n_period * stretch)).astype(int)
-    fine = p0_fine + k_idx * spec.n_period * stretch
 
+    # 3: the window
     pre = int(round(pre_s * fs))
-    # the window after the direct sound: to the next sweep's earliest harmonic, or the end
-    n_h = max(n_harmonics, 1)
-    gap_inner = spec.n_period - spec.rate_constant_s * fs * math.log(n_h + 1) - pre - 0.01 * fs
-    after_last = (n_rec - fine[-1]) / stretch - spec.n_sweep - 0.001 * fs
-    n_after = int(min(gap_inner if starts.size > 1 else np.inf, after_last))
-    if max_length_s is not None:
-        n_after = min(n_after, int(max_length_s * fs))
-    if n_after < int(0.05 * fs):
-        raise AudioFileError(
-            f"the recording keeps only {max(n_after, 0) / fs * 1000:.0f} ms after the last sweep; "
-            "record the whole file including the silence after the sweep (use a longer --gap)")
-    n_len = pre + n_after
+    win = plan_window(tm, sweep, n_rec, pre=pre, n_harmonics=n_harmonics,
+                      max_length_s=max_length_s)
+    n_len = win.n_len
     # Drift below this leaves every sample of the window within 0.02 samples of its place.
     unstretch = abs(eps) * n_len >= 0.02
 
-    # 4: read each channel's responses onto the player's clock and average the sweeps
-    origins = fine - pre * stretch
-    h_rows, harm_rows, arrivals = [], [], []
-    # The harmonic responses sit closer together than the linear one's pre-time allows.
-    pre_h = min(pre, int(round(HARMONIC_PRE_S * fs)))
-    keep: list[int] = []
+    # 4: read back each channel's windows, leave out disturbed repeats, average
+    bands = length_bands_hz(spec.f1_hz, spec.f2_hz, fs)
+    spectra = [aligned_spectra(d[c], win.origins, n_len, sweep, eps) for c in channels]
+    keep, left_out = select_repeats(spectra, fs, pre=pre, bands_hz=bands)
+    for k, why in left_out:
+        warnings.append(f"sweep {k} of {starts.size} was left out of the average: {why}")
+    accs = [_mean_of(sp, keep) for sp in spectra]
+
+    # 5: where the decay meets the noise (on the recorder's clock), then the final length
+    rec = np.array([_finish(a, sp, sweep, eps, n_len, unstretch=False)
+                    for a, sp in zip(accs, spectra, strict=True)])
+    length = response_length(rec, fs, pre, bands_hz=bands)
+    n_out = min(n_len, int(length.end / stretch) + 1) if unstretch else length.end
+    if unstretch:
+        h = np.array([_finish(a, sp, sweep, eps, n_out, unstretch=True)
+                      for a, sp in zip(accs, spectra, strict=True)])
+    else:
+        h = rec[:, :n_out].copy()
+    del spectra, accs, rec
+
+    # each channel's own direct sound (it may be far from the timing channel's); harmonics
+    origins = win.origins[keep]
+    radius = _search_radius(sweep, fs)
+    pre_h = min(pre, int(round(HARMONIC_PRE_S * fs)))  # harmonics sit closer than pre allows
+    harm_rows, arrivals, keep_h = [], [], []
     for c in channels:
         row = d[c]
-        h_rows.append(_read_average(row, origins, n_len, sweep, eps, unstretch=unstretch,
-                                    trim_pre=pre))
-        # the channel's own direct sound: it may be far from the timing channel's
-        if c == timing:
-            lo_c, wc, pc = lo, w, p_w
+        if c == timing_row:
+            lo_c, wc, pc = tm.window_start, tm.window, tm.direct_in_window
         else:
             reach = int(ARRIVAL_SEARCH_S * fs)
             a = max(int(starts[0]) - reach, 0)
@@ -524,195 +1328,66 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
             # from pre_h before its direct sound to where the next lower order begins, less
             # the pre-time over which that one's band limit rings (as long as the linear's)
             room = spec.rate_constant_s * fs * math.log(order / (order - 1)) - pre
-            n_keep = min(n_len - (pre - pre_h), pre_h + max(int(room), 0))
-            hn = np.zeros(n_len)
+            n_keep = min(n_out - (pre - pre_h), pre_h + max(int(room), 0))
+            hn = np.zeros(n_out)
             # harmonic responses serve the distortion figures: left on the recorder's clock
-            hn[pre - pre_h:pre - pre_h + n_keep] = _read_average(
+            hn[pre - pre_h:pre - pre_h + n_keep] = read_back(
                 row, origins + (pre - pre_h) * stretch - adv, n_keep, sweep, eps,
                 unstretch=False)
             hh.append(hn)
-            keep.append(n_keep)
+            if c == channels[0]:
+                keep_h.append(n_keep)
         harm_rows.append(hh)
-    n_len = min(r.size for r in h_rows)
-    h = np.asarray([r[:n_len] for r in h_rows])
-    harm = (np.asarray(harm_rows)[:, :, :n_len] if n_harmonics
-            else np.zeros((len(channels), 0, n_len)))
+    harm = (np.asarray(harm_rows) if n_harmonics else np.zeros((len(channels), 0, n_out)))
 
-    # 5: noise, peak-to-noise, trimming, harmonic levels
+    # figures: latency, noise, peak-to-noise, harmonic levels
     latency, pnr, noise_dbfs, harmonics = [], [], [], []
-    ref_arrival = (p0_fine / stretch - spec.n_lead) / fs
+    ref_arrival = (tm.fine[0] / stretch - spec.n_lead) / fs
     for i in range(len(channels)):
         arrival = (arrivals[i] / stretch - spec.n_lead) / fs
         latency.append(arrival - ref_arrival if reference_channel is not None else arrival)
-        tail = h[i, -max(int(0.2 * (n_len - pre)), 1):]
-        noise_pow = float(np.mean(tail**2)) + 1e-300
+        noise_pow = length.noise_power[i]
         peak_pow = float(np.max(h[i] ** 2))
-        pnr.append(10 * math.log10(peak_pow / noise_pow))
+        pnr.append(10 * math.log10(max(peak_pow, 1e-300) / noise_pow))
         noise_dbfs.append(10 * math.log10(noise_pow))
+        tail = h[i, pre + (n_out - pre) // 2:] if n_out - pre >= 32 else None
         harmonics.append(tuple(
             _harmonic_level(h[i], harm[i, j], j + 2, sweep, pre=pre, pre_h=pre_h,
-                            post=keep[j] - pre_h)
+                            post=keep_h[j] - pre_h, noise=tail)
             for j in range(harm.shape[1])))
-    end = _trim_end(h, pre, fs)
-    h = h[:, :end]
-    harm = harm[:, :, :end]
     for i, val in enumerate(pnr):
         if val < 30.0:
             warnings.append(
                 f"channel {channels[i] + 1}: the peak-to-noise ratio is only {val:.1f} dB; raise "
                 "the level step by step, use a longer sweep or more repeats, or quieten the room")
+    gap_needed = None
+    if not all(length.noise_reached):
+        lead_end = max(int(tm.fine[0]) - int(ARRIVAL_SEARCH_S * fs), 0)
+        leadin = [y2[c, :lead_end] for c in channels]
+        if win.limited_by.startswith("the length limit"):
+            advice = "raise the length limit"
+        else:
+            gap_needed = _gap_needed_s(length, leadin, sweep, win, len(keep), n_harmonics,
+                                       latency[0] if reference_channel is None else
+                                       (arrivals[0] / stretch - spec.n_lead) / fs, bands)
+            advice = ("make the sweep again with a longer gap"
+                      + (f" (at least --gap {gap_needed:g})" if gap_needed else "")
+                      + " so that the decay can reach the noise")
+        for i, bad in enumerate(length.unreached):
+            if bad:
+                warnings.append(
+                    f"channel {channels[i] + 1}: the response ends {win.n_after / fs:.2f} s "
+                    f"after the direct sound, at {win.limited_by}, before its decay reaches "
+                    f"the noise (in the {', '.join(bad)} band{'s' if len(bad) > 1 else ''}); "
+                    f"the figures that need the rest are left out; {advice}")
     return ImpulseResponse(
         h=h, fs=fs, channels=tuple(channels), onset_index=pre, latency_s=tuple(latency),
         drift_ppm=eps * 1e6, peak_to_noise_db=tuple(pnr), noise_dbfs=tuple(noise_dbfs),
-        harmonics=tuple(harmonics), harmonic_h=harm, n_averaged=int(starts.size),
+        harmonics=tuple(harmonics), harmonic_h=harm, n_averaged=len(keep),
         n_clipped=n_clipped, reference_channel=reference_channel,
         reference_latency_s=ref_arrival if reference_channel is not None else None,
-        warnings=tuple(warnings))
-
-
-def _search_radius(sweep: Sweep, fs: int) -> int:
-    """How far drift can move the direct sound in a response deconvolved without correction."""
-    spec = sweep.spec
-    return int(0.002 * fs + MAX_DRIFT_PPM * 1e-6 * spec.rate_constant_s * fs
-               * (math.log(spec.f2_hz / spec.f1_hz) + 1.0))
-
-
-def _dispersion_correction(n_fft: int, sweep: Sweep, eps: float) -> np.ndarray:
-    """rfft-domain factor X/X_s that turns a nominal deconvolution into a drift-free one.
-
-    A recorder running ε fast records the sweep with rate constant L(1+ε) samples and start
-    frequency f1/(1+ε). By stationary phase the spectrum of an exponential sweep has phase
-    ψ(ν) = 2πL(ν − ν1 − ν·ln(ν/ν1)) (ν in cycles per sample, L in samples) [1]_, so dividing
-    the recording by the nominal sweep instead of the stretched one leaves the factor
-    X_s/X = √(1+ε)·exp(jΔψ), Δψ(ν) = 2πLν[ε − ε·ln(ν/ν1) − (1+ε)·ln(1+ε)] (derived), whose
-    group delay is the ε·L·(ln(ν/ν1)+1) of measurement.md §1.6. This returns its inverse.
-    """
-    spec = sweep.spec
-    L = spec.rate_constant_s * spec.fs
-    nu1 = spec.f1_hz / spec.fs
-    nu = np.arange(n_fft // 2 + 1) / n_fft
-    with np.errstate(divide="ignore"):
-        lnr = np.log(np.maximum(nu, 1e-12) / nu1)
-    dpsi = 2 * np.pi * L * nu * (eps - eps * lnr - (1 + eps) * math.log1p(eps))
-    return np.exp(-1j * dpsi) / math.sqrt(1.0 + eps)
-
-
-def _read_average(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep, eps: float,
-                  *, unstretch: bool, trim_pre: int | None = None) -> np.ndarray:
-    """Average the windows of ``row`` that start at fractional ``origins``, drift removed.
-
-    ``row`` is a nominal deconvolution. Each window is advanced by its fractional start with a
-    linear phase (exact at every frequency), the windows are averaged as spectra, the drift's
-    dispersion is undone (:func:`_dispersion_correction`) and, with ``unstretch``, the average is
-    read back at steps of 1+ε samples by a chirp-z transform (the DFT evaluated on a scaled
-    frequency grid), which undoes the stretch of the room response without the high-frequency
-    loss of an interpolator. Negative positions wrap to the end of ``row`` (negative lags).
-    With ``trim_pre`` (the samples before the direct sound) the result stops well into the noise
-    (:func:`_trim_end`), judged before the costlier unstretching.
-    """
-    from scipy.fft import irfft, next_fast_len, rfft
-
-    stretch = 1.0 + eps
-    margin = int(_search_radius(sweep, sweep.fs)) + 64
-    n_seg = int(math.ceil(n_out * stretch)) + 2 * margin
-    n_fft = next_fast_len(n_seg + margin, real=True)
-    k = np.arange(n_fft // 2 + 1)
-    acc = np.zeros(k.size, dtype=np.complex128)
-    for o in origins:
-        base = int(math.floor(o))
-        frac = o - base
-        seg = row.take(np.arange(base - margin, base - margin + n_seg), mode="wrap")
-        S = rfft(seg, n_fft)
-        if frac:
-            S *= np.exp(2j * np.pi * k * frac / n_fft)
-        acc += S
-    acc /= len(origins)
-    if eps:
-        acc *= _dispersion_correction(n_fft, sweep, eps)
-    if trim_pre is not None or not unstretch:
-        t_rec = irfft(acc, n_fft)[margin:margin + n_out]
-        if trim_pre is not None:
-            n_out = min(n_out, int(_trim_end(t_rec[np.newaxis, :], trim_pre, sweep.fs) / stretch) + 1)
-        if not unstretch:
-            return t_rec[:n_out]
-    # u[m] = (1/N)·Re Σ_k c_k·exp(j2πk(margin + m·stretch)/N), c_k = 2·S_k (1 at DC and Nyquist)
-    c = acc * np.exp(2j * np.pi * k * margin / n_fft)
-    c[1:] *= 2.0
-    if n_fft % 2 == 0:
-        c[-1] *= 0.5
-    return _chirp_sum(c, n_out, 2 * np.pi * stretch / n_fft).real / n_fft
-
-
-def _chirp_sum(c: np.ndarray, m: int, alpha: float) -> np.ndarray:
-    """X_j = Σ_k c_k·exp(i·alpha·k·j), j = 0 … m−1, by Bluestein's chirp-z algorithm.
-
-    The chirp's phase is computed in float64 and reduced mod 2π before the exponential, which
-    keeps it exact to ~1e-10 rad even for k² ~ 1e11.
-    """
-    from scipy.fft import fft, ifft, next_fast_len
-
-    K = c.size
-    n = next_fast_len(K + m - 1)
-    kk = np.arange(max(K, m), dtype=np.float64)
-    chirp = np.exp(1j * np.mod(0.5 * alpha * kk * kk, 2 * np.pi))
-    a = np.zeros(n, dtype=np.complex128)
-    a[:K] = c * chirp[:K]
-    b = np.zeros(n, dtype=np.complex128)
-    b[:m] = np.conj(chirp[:m])
-    b[n - K + 1:] = np.conj(chirp[1:K][::-1])
-    a = fft(a, overwrite_x=True)
-    a *= fft(b, overwrite_x=True)
-    del b
-    out = ifft(a, overwrite_x=True)[:m]
-    out *= chirp[:m]
-    return out
-
-
-def _trim_end(h: np.ndarray, pre: int, fs: int) -> int:
-    """Keep the response until well into the noise: twice the time it takes to reach it."""
-    block = max(int(0.01 * fs), 1)
-    n = h.shape[1]
-    ends = []
-    for row in h:
-        body = row[pre:]
-        nb = body.size // block
-        if nb < 10:
-            return n
-        levels = 10 * np.log10(np.mean(body[:nb * block].reshape(nb, block) ** 2, axis=1) + 1e-300)
-        noise = float(np.mean(levels[-max(nb // 5, 1):]))
-        i_peak = int(np.argmax(levels))
-        below = np.nonzero(levels[i_peak:] <= noise + 3.0)[0]
-        if below.size == 0:
-            return n
-        cross = (i_peak + int(below[0])) * block
-        ends.append(pre + max(2 * cross, cross + int(0.2 * fs)))
-    return int(min(n, max(ends)))
-
-
-def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *, pre: int,
-                    pre_h: int, post: int) -> HarmonicDistortion:
-    """Energy of harmonic ``order`` at N·f over the fundamental's at f, over the excited band.
-
-    ``h1`` and ``hn`` have their direct sounds at index ``pre``; ``hn`` holds data from
-    ``pre − pre_h`` on. Both are compared up to ``post`` samples (at most 0.5 s) after their
-    direct sounds, so a room's reverberation weighs equally in both; ``h1`` keeps all its time
-    before the direct sound, where its band limit at f1 rings.
-    """
-    spec = sweep.spec
-    fs = spec.fs
-    post = max(min(post, int(0.5 * fs), h1.size - pre), 1)
-    H1 = np.abs(np.fft.rfft(h1[:pre + post])) ** 2
-    HN = np.abs(np.fft.rfft(hn[pre - pre_h:pre + post])) ** 2
-    f1_grid = np.fft.rfftfreq(pre + post, 1.0 / fs)
-    f = np.fft.rfftfreq(pre_h + post, 1.0 / fs)
-    top = min(spec.f2_hz, 0.95 * fs / 2) / order
-    lo = 2.0 * spec.f1_hz
-    grid = np.geomspace(lo, top, 200) if top > lo * 1.5 else np.array([])
-    adv = spec.harmonic_advance_s(order)
-    if grid.size == 0:
-        return HarmonicDistortion(order, adv, float("nan"), float("nan"))
-    p1 = np.interp(grid, f1_grid, H1)
-    pn = np.interp(order * grid, f, HN)
-    ratio = float(np.sum(pn)) / (float(np.sum(p1)) + 1e-300)
-    level_db = 10 * math.log10(ratio + 1e-300)
-    return HarmonicDistortion(order, adv, level_db, 100.0 * math.sqrt(ratio))
+        warnings=tuple(warnings), f1_hz=spec.f1_hz, f2_hz=spec.f2_hz,
+        available_s=win.n_after / fs, limited_by=win.limited_by,
+        noise_reached=length.noise_reached, unreached_bands=length.unreached,
+        gap_needed_s=gap_needed, repeats_found=int(starts.size),
+        repeats_left_out=tuple(left_out), origins=np.asarray(origins, dtype=np.float64))

@@ -134,7 +134,13 @@ def test_harmonic_distortion_is_reported_per_harmonic(duration_s, repeats):
     hd = {d.order: d for d in ir.harmonics[0]}
     assert hd[2].percent == pytest.approx(3.0, rel=0.03)
     assert hd[3].percent == pytest.approx(2.0, rel=0.03)
-    assert hd[4].percent < 0.1 and hd[5].percent < 0.1  # a cubic makes no 4th or 5th
+    # A cubic makes no 4th or 5th harmonic (the identities above): their windows hold the
+    # −90 dBFS noise and leakage from the neighbouring orders' band limits; either reading
+    # (the level, or the bound of one below the noise) is under 0.1 %.
+    for order in (4, 5):
+        d = hd[order]
+        assert (d.percent if d.above_noise else d.noise_percent) < 0.1
+    assert hd[2].above_noise and hd[3].above_noise
     # the advance L·ln N of Farina 2000
     assert hd[2].advance_s == pytest.approx(sweep5.spec.rate_constant_s * math.log(2))
 

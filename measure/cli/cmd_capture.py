@@ -436,9 +436,12 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
                 "label": labels[row], "file_channel": row + 1,
                 "latency_s": ir.latency_s[k], "latency_samples": ir.latency_s[k] * fs,
                 "peak_to_noise_db": pnr[row],
-                "distortion_percent": {f"H{hd.order}": hd.percent for hd in ir.harmonics[k]}})
+                "distortion_percent": {f"H{hd.order}": hd.percent for hd in ir.harmonics[k]},
+                "distortion": [hd.describe() for hd in ir.harmonics[k]]})
+            # a harmonic below the noise in its own window is no reading: no level advice
             loud = [f"H{hd.order} {hd.percent:.1f} %" for hd in ir.harmonics[k]
-                    if hd.percent is not None and hd.percent > DISTORTION_NOTE_PERCENT]
+                    if hd.above_noise and hd.percent is not None
+                    and hd.percent > DISTORTION_NOTE_PERCENT]
             if loud:
                 extra_notes.append(
                     f"{labels[row]}: harmonic distortion {', '.join(loud)}: the loudspeaker or "
@@ -507,6 +510,8 @@ def format_summary(summary: dict[str, Any], take: Any, fs: int, rec: Any = None)
             f"IR {c['label']}: latency {lat * 1e3:.3f} ms ({c['latency_samples']:.1f} samples"
             f"{' after the loopback' if an['referenced_to_loopback'] else ''}), peak-to-noise "
             f"{'> 150 dB (no noise)' if pnr is None else f'{pnr:.1f} dB'}")
+        if c.get("distortion"):
+            lines.append(f"   distortion {', '.join(c['distortion'])}")
     if an["ir"] is not None:
         lines.append(f"clock drift {an['drift_ppm']:+.2f} ppm, {an['n_averaged']} sweep(s) "
                      "averaged")

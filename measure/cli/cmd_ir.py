@@ -83,7 +83,7 @@ def format_ir_summary(ir) -> str:
              f"clock drift {ir.drift_ppm:+.1f} ppm"]
     for c, lat, pnr, hds in zip(ir.channels, ir.latency_s, ir.peak_to_noise_db, ir.harmonics,
                                 strict=True):
-        dist = ", ".join(f"H{hd.order} {hd.percent:.2f} %" for hd in hds) or "not analysed"
+        dist = ", ".join(hd.describe() for hd in hds) or "not analysed"
         lines.append(f"channel {c + 1}: latency {lat * 1000:.2f} ms, peak-to-noise {pnr:.1f} dB, "
                      f"distortion {dist}")
     return "\n".join(lines)
