@@ -36,6 +36,7 @@ __all__ = [
     "DECAY_CONSTANT",
     "FIT_RANGES_DB",
     "REQUIRED_RANGE_DB",
+    "ENERGY_RANGE_DB",
     "CURVATURE_LIMIT_PERCENT",
     "XI_LIMIT_PERMILLE",
     "NoiseFloor",
@@ -43,6 +44,7 @@ __all__ = [
     "onset_index",
     "schroeder",
     "lundeby",
+    "decay_range_db",
     "fit_range",
     "decay_line",
     "fit_decay",
@@ -63,6 +65,14 @@ FIT_RANGES_DB: dict[str, tuple[float, float]] = {
 #: Decay above the noise each figure needs, dB: the bottom of its fit range at least 10 dB
 #: above the noise (ISO 3382-1:2009 5.3.3: 35 dB for T20, 45 dB for T30; EDT by the same rule).
 REQUIRED_RANGE_DB: dict[str, float] = {"edt": 20.0, "t20": 35.0, "t30": 45.0}
+
+#: Decay above the noise that the energy figures (C50, C80, D50, Ts, DRR) and the STI need, dB:
+#: the same 20 dB as EDT, whose range is the first 10 dB of the same curve (the bottom of the
+#: range 10 dB above the noise, as ISO 3382-1:2009 5.3.3 asks of the decay times). With less, the
+#: band's reverberant decay stands only a few dB above the noise and the noise-floor search
+#: reads the direct sound's fall as the decay (measured: a 1.5 s decay read as 0.11 s at 16 dB,
+#: giving C50 +27 dB where the response's true C50 was +1 dB).
+ENERGY_RANGE_DB: float = 20.0
 
 #: |C| above this is flagged as a non-exponential decay (ISO 3382-2:2008 Annex B: "above 10 %
 #: the decay is suspect").
@@ -514,6 +524,24 @@ def _uniform_slope(y: np.ndarray) -> tuple[float, float, float]:
     return b, min(r2, 1.0), ym
 
 
+def decay_range_db(h: np.ndarray, nf: NoiseFloor) -> float:
+    """Decay above the noise of a band-filtered IR, dB: the compensated Schroeder level at the
+    truncation point, negated (ISO 3382-1:2009 5.3.3 compares it with each figure's need).
+
+    ``h`` starts where ``nf`` (:func:`lundeby` of ``h``) does. 300 dB stands for "no noise
+    and no tail": a response that decays to exact zero.
+    """
+    n1 = nf.truncation_index
+    noise_sub = nf.noise_power if nf.noise_floor_found else 0.0
+    e0 = float(np.sum(h[:n1] ** 2)) - noise_sub * n1 + nf.compensation
+    if not (e0 > 0):
+        return 0.0
+    if nf.compensation > 0:
+        return -10.0 * math.log10(nf.compensation / e0)
+    last = float(h[n1 - 1] ** 2) - noise_sub
+    return -10.0 * math.log10(last / e0) if last > 0 else 300.0
+
+
 @dataclass(frozen=True, slots=True, eq=False)
 class DecayFigures:
     """Decay figures of one band (or the broadband IR).
@@ -541,6 +569,11 @@ class DecayFigures:
     edc_db : ndarray
         The compensated Schroeder curve from the onset to the truncation point (read-only).
     fs : int
+    noise : NoiseFloor or None
+        The noise-floor analysis the figures stand on (the energy figures of the same band
+        share it, see :mod:`measure.parameters`).
+    onset : int
+        Index of ``h_band`` where the analysis (and ``edc_db``) starts.
     """
 
     edt_s: float | None
@@ -557,6 +590,8 @@ class DecayFigures:
     flags: tuple[str, ...]
     edc_db: np.ndarray = field(repr=False)
     fs: int
+    noise: NoiseFloor | None = field(default=None, repr=False)
+    onset: int = 0
 
     def __post_init__(self) -> None:
         self.edc_db.setflags(write=False)
@@ -605,16 +640,11 @@ def analyze_decay(h_band: np.ndarray, fs: int, *, onset: int | None = None,
         flags.append(f"{where}no decay can be measured: {nf.reason}")
         return DecayFigures(None, None, None, nf.peak_to_noise_db, None, None, None, None, None,
                             nf.truncation_index / fs, nf.noise_floor_found, tuple(flags),
-                            empty, fs)
+                            empty, fs, nf, i0)
     noise_sub = nf.noise_power if nf.noise_floor_found else 0.0
     curve = schroeder(seg, stop_index=nf.truncation_index, compensation=nf.compensation,
                       noise_power=noise_sub)
-    e0 = (float(np.sum(seg[: nf.truncation_index] ** 2)) - noise_sub * nf.truncation_index
-          + nf.compensation)
-    if nf.compensation > 0:
-        decay_range = -10.0 * math.log10(nf.compensation / e0)
-    else:
-        decay_range = float(-curve[-1]) if np.isfinite(curve[-1]) else 300.0
+    decay_range = decay_range_db(seg, nf)
     if not nf.converged:
         flags.append(f"{where}the noise-floor search (Lundeby) did not converge; the "
                      "truncation point may be off")
@@ -668,4 +698,4 @@ def analyze_decay(h_band: np.ndarray, fs: int, *, onset: int | None = None,
         xi_edt_permille=xis["edt"], xi_t20_permille=xis["t20"], xi_t30_permille=xis["t30"],
         curvature_percent=curvature, truncation_s=nf.truncation_index / fs,
         noise_floor_found=nf.noise_floor_found, flags=tuple(flags),
-        edc_db=np.asarray(curve, dtype=np.float64), fs=fs)
+        edc_db=np.asarray(curve, dtype=np.float64), fs=fs, noise=nf, onset=i0)

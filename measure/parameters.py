@@ -59,7 +59,15 @@ from measure.bands import (
     filter_order,
     make_bands,
 )
-from measure.decay import DecayFigures, analyze_decay, lundeby, onset_index
+from measure.decay import (
+    ENERGY_RANGE_DB,
+    DecayFigures,
+    NoiseFloor,
+    analyze_decay,
+    lundeby,
+    onset_index,
+)
+from measure.deconvolve import ResponseContext
 from measure.errors import ParameterError
 from measure.intelligibility import StiResult, check_noise_levels, sti_from_ir
 
@@ -198,6 +206,8 @@ class EnergyFigures:
     start_index : int
         Sample where the sums start (onset plus the band filter's group delay).
     flags : tuple of str
+    total_energy : float or None
+        The band's noise-corrected, compensated energy Σ h² (for the source-level check).
     """
 
     c50_db: float | None
@@ -207,25 +217,39 @@ class EnergyFigures:
     drr_db: float | None
     start_index: int
     flags: tuple[str, ...] = ()
+    total_energy: float | None = None
 
 
-def _tail_energy_fn(e: np.ndarray, n1: int, a_db: float | None, b_db: float | None, fs: int,
-                    comp: float):
-    """Energy from sample k to infinity: measured sum to n1, then the fitted exponential."""
-    r = 10.0 ** (b_db / (10.0 * fs)) if b_db is not None else 0.0
+#: At most this share of the energy after a split time (of the first moment, for Ts; of the
+#: reverberant energy, for the DRR) may come from extrapolating the band's late decay past the
+#: point where it meets the noise (Lundeby's compensation). Beyond it the figure rests more on
+#: the fitted slope than on the response: a slope 2× wrong then moves C50 by more than 1 dB
+#: (derived: 10 lg(1 + 0.25) = 0.97 dB for a tail half as long), so the figure is left out
+#: (common practice for the bound).
+MAX_EXTRAPOLATED_SHARE: float = 0.25
 
-    def tail(k: int) -> float:
-        if k < n1:
-            return float(e[k:n1].sum()) + comp
-        if a_db is None or b_db is None:
-            return 0.0
-        return float(10.0 ** ((a_db + b_db * k / fs) / 10.0) / (1.0 - r))
 
-    return tail
+def _line_energy(a_db: float, b_db: float, k: int, fs: int) -> float:
+    """Σ_{n >= k} 10**((a + b n/fs)/10): energy of the late decay line from sample k on."""
+    if not (b_db < 0):
+        return 0.0
+    r = 10.0 ** (b_db / (10.0 * fs))
+    return float(10.0 ** ((a_db + b_db * k / fs) / 10.0) / (1.0 - r))
+
+
+def _line_moment(a_db: float, b_db: float, k: int, fs: int) -> float:
+    """Σ_{n >= k} (n/fs)·10**((a + b n/fs)/10): first moment of the late line from k on."""
+    if not (b_db < 0):
+        return 0.0
+    r = 10.0 ** (b_db / (10.0 * fs))
+    a1 = 10.0 ** ((a_db + b_db * k / fs) / 10.0)
+    return float(a1 * ((k / fs) / (1.0 - r) + (r / (1.0 - r) ** 2) / fs))
 
 
 def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray | None = None,
-                   label: str = "", first: int | None = None) -> EnergyFigures:
+                   label: str = "", first: int | None = None, noise: NoiseFloor | None = None,
+                   noise_origin: int | None = None, decay_range_db: float | None = None
+                   ) -> EnergyFigures:
     """C50, C80, D50, Ts (and DRR when the direct part is given) of one filtered IR.
 
     Parameters
@@ -248,12 +272,26 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
         and depends on where between two samples it fell (measured: up to 0.7 dB of C80 at
         8 kHz between a true response and the same response shifted by half a sample).
         Times (the te split, Ts) still count from ``start``.
+    noise : NoiseFloor, optional
+        The band's noise-floor analysis from its decay figures (:func:`analyze_decay` of the
+        same band), whose index 0 is sample ``noise_origin`` of ``y``: the energy figures then
+        use the same noise power, truncation point and late decay line as the decay times, so
+        the two can never tell different stories. Without it, :func:`measure.decay.lundeby`
+        runs on ``y`` from ``first``.
+    noise_origin : int, optional
+        See ``noise``.
+    decay_range_db : float, optional
+        The band's decay above the noise (:attr:`DecayFigures.decay_range_db`): below
+        :data:`measure.decay.ENERGY_RANGE_DB` every figure here is None.
 
     Notes
     -----
     ISO 3382-1:2009 A.2.3–A.2.4: ``C_te = 10 lg(∫_0^te p² / ∫_te^∞ p²)``,
     ``D50 = ∫_0^0.05 p² / ∫_0^∞ p²``, ``Ts = ∫ t p² / ∫ p²``. Sums split at sample
-    ``round(te·fs)`` after ``start``.
+    ``round(te·fs)`` after ``start``. The late sums end at the truncation point, the noise's
+    mean power is subtracted, and the late decay line continues them analytically (ISO 3382-1
+    5.3.3 Eq. (3)); a figure whose late energy would be more than
+    :data:`MAX_EXTRAPOLATED_SHARE` extrapolated is None.
     """
     y = check_signal(y, "y", ndim=(1,))
     fs = check_fs(fs)
@@ -261,41 +299,78 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
     first = start if first is None else min(max(int(first), 0), start)
     lead = start - first
     seg = y[first:]
-    nf = lundeby(seg, fs)
+    none = dict(c50_db=None, c80_db=None, d50=None, ts_s=None, drr_db=None)
+    if decay_range_db is not None and decay_range_db < ENERGY_RANGE_DB:
+        return EnergyFigures(**none, start_index=start, flags=(
+            f"{where}C50, C80, D50, Ts and DRR need the decay measured over "
+            f"{ENERGY_RANGE_DB:.0f} dB above the noise; this band has only "
+            f"{_floor_db(decay_range_db)} dB, so its late energy is mostly noise",))
+    if noise is None:
+        nf = lundeby(seg, fs)
+        n1 = nf.truncation_index
+        line = nf.late_fit_db
+    else:
+        nf = noise
+        origin = first if noise_origin is None else int(noise_origin)
+        n1 = min(max(nf.truncation_index + origin - first, 1), seg.shape[0])
+        line = None
+        if nf.late_fit_db is not None:  # the same line, on this signal's clock
+            a_db, b_db = nf.late_fit_db
+            line = (a_db + b_db * (first - origin) / fs, b_db)
     if not nf.ok:
-        msg = f"{where}C50, C80, D50, Ts and DRR cannot be measured: {nf.reason}"
-        return EnergyFigures(None, None, None, None, None, start, (msg,))
+        return EnergyFigures(**none, start_index=start, flags=(
+            f"{where}C50, C80, D50, Ts and DRR cannot be measured: {nf.reason}",))
     e = seg * seg
-    noise = nf.noise_power if nf.noise_floor_found else 0.0
-    if noise:
-        e = e - noise
-    n1 = nf.truncation_index
-    a_db, b_db = nf.late_fit_db if nf.late_fit_db is not None else (None, None)
-    tail = _tail_energy_fn(e, n1, a_db, b_db, fs, nf.compensation)
-    total = tail(0)
+    noise_p = nf.noise_power if nf.noise_floor_found else 0.0
+    if noise_p:
+        e = e - noise_p
+    csum = np.concatenate([np.cumsum(e[:n1][::-1])[::-1], [0.0]])  # Σ e[k:n1]
+    comp = _line_energy(*line, n1, fs) if line is not None else 0.0
+
+    def late(k: int) -> float:  # energy from sample k on
+        if k < n1:
+            return float(csum[k]) + comp
+        return _line_energy(*line, k, fs) if line is not None else 0.0
+
+    def extrapolated(k: int) -> float:  # the part of late(k) that comes from the line
+        return comp if k < n1 else late(k)
+
+    total = late(0)
     flags: list[str] = []
     if not (total > 0):
-        return EnergyFigures(None, None, None, None, None, start,
-                             (f"{where}no energy left after removing the noise",))
+        return EnergyFigures(**none, start_index=start, flags=(
+            f"{where}no energy left after removing the noise",))
+    t1_ms = (n1 - lead) / fs * 1000.0
     out: dict[str, float | None] = {}
     for te_s, key in ((0.050, "c50_db"), (0.080, "c80_db")):
         k = lead + int(round(te_s * fs))
-        late = tail(k)
-        early = total - late
-        out[key] = 10.0 * math.log10(early / late) if early > 0 and late > 0 else None
-        if out[key] is None:
-            flags.append(f"{where}{key[:3].upper()} undefined: no energy on one side of "
+        lt = late(k)
+        early = total - lt
+        name = key[:3].upper()
+        out[key] = None
+        if not (early > 0 and lt > 0):
+            flags.append(f"{where}{name} undefined: no energy on one side of "
                          f"{te_s * 1000:.0f} ms")
+        elif extrapolated(k) > MAX_EXTRAPOLATED_SHARE * lt:
+            flags.append(
+                f"{where}{name}{' and D50' if key == 'c50_db' else ''} left out: the decay "
+                f"meets the noise {t1_ms:.0f} ms after the direct sound, so "
+                f"{extrapolated(k) / lt:.0%} of the energy after {te_s * 1000:.0f} ms would be "
+                f"extrapolated (at most {MAX_EXTRAPOLATED_SHARE:.0%} is taken)")
+        else:
+            out[key] = 10.0 * math.log10(early / lt)
     k50 = lead + int(round(0.050 * fs))
-    d50 = (total - tail(k50)) / total
-    # Ts: Σ t e over the measured part plus the analytic tail Σ t a r^(n-n1)
+    d50 = (total - late(k50)) / total if out["c50_db"] is not None else None
+    # Ts: Σ t e over the measured part plus the line's analytic moment
     t = np.arange(n1) / fs
-    mom = float(np.einsum("i,i->", t, e[:n1]))  # not @: see decay._uniform_slope
-    if a_db is not None and b_db is not None:
-        r = 10.0 ** (b_db / (10.0 * fs))
-        a1 = 10.0 ** ((a_db + b_db * n1 / fs) / 10.0)
-        mom += a1 * ((n1 / fs) / (1.0 - r) + (r / (1.0 - r) ** 2) / fs)
-    ts = mom / total - lead / fs  # times count from start
+    mom_meas = float(np.einsum("i,i->", t, e[:n1]))  # not @: see decay._uniform_slope
+    mom_tail = _line_moment(*line, n1, fs) if line is not None else 0.0
+    ts: float | None = (mom_meas + mom_tail) / total - lead / fs  # times count from start
+    if mom_tail > MAX_EXTRAPOLATED_SHARE * (mom_meas + mom_tail):
+        flags.append(f"{where}Ts left out: the decay meets the noise {t1_ms:.0f} ms after the "
+                     f"direct sound, so {mom_tail / (mom_meas + mom_tail):.0%} of its moment "
+                     f"would be extrapolated (at most {MAX_EXTRAPOLATED_SHARE:.0%} is taken)")
+        ts = None
     drr = None
     if y_direct is not None:
         m = min(y_direct.shape[0], y.shape[0])
@@ -306,13 +381,22 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
         rest = y[:stop].copy()
         mm = min(m, stop)
         rest[:mm] -= y_direct[:mm]
-        e_r = float(np.sum(rest * rest)) - noise * stop + nf.compensation
-        if e_d > 0 and e_r > 0:
-            drr = 10.0 * math.log10(e_d / e_r)
-        else:
+        e_r = float(np.sum(rest * rest)) - noise_p * stop + comp
+        if not (e_d > 0 and e_r > 0):
             flags.append(f"{where}DRR undefined: no reverberant energy above the noise")
-    return EnergyFigures(out["c50_db"], out["c80_db"], float(d50), float(ts), drr, start,
-                         tuple(flags))
+        elif comp > MAX_EXTRAPOLATED_SHARE * e_r:
+            flags.append(f"{where}DRR left out: {comp / e_r:.0%} of the reverberant energy "
+                         f"would be extrapolated (at most {MAX_EXTRAPOLATED_SHARE:.0%} is taken)")
+        else:
+            drr = 10.0 * math.log10(e_d / e_r)
+    return EnergyFigures(out["c50_db"], out["c80_db"], None if d50 is None else float(d50),
+                         None if ts is None else float(ts), drr, start, tuple(flags),
+                         total_energy=float(total))
+
+
+def _floor_db(v: float) -> str:
+    """A dB range rounded down, so that "needs 35 dB, has 34" reads true at 34.9 dB."""
+    return f"{math.floor(v * 10.0) / 10.0:.1f}" if v < 100 else f"{v:.0f}"
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -587,14 +671,64 @@ def _plausibility(band: Band | None, fs: int, values: dict[str, float | None], l
     return flags
 
 
+#: Tie of C50 and C80 to the band's own decay curve (see :func:`_tie_flags`): the causal sums
+#: may differ from the values read off the time-reversed decay curve by this much plus
+#: :data:`TIE_DB_PER_MS` per millisecond of the band filter's spread (its 5–95 % energy time),
+#: which is what separates the two filterings. Measured on six noise-free virtual rooms
+#: (T 0.3–3.4 s, DRR +6 to −12 dB): at most 4.9 dB at 63 Hz (spread 20.7 ms), 1.45 dB at
+#: 125 Hz (10.4 ms), 0.35 dB from 250 Hz up; the bound leaves 1.8–2.6 dB to spare.
+TIE_DB: float = 1.5
+TIE_DB_PER_MS: float = 0.25
+#: A band whose energy per hertz lies this far below the median of the 500 Hz–2 kHz octaves is
+#: flagged: the source hardly radiates there (a small loudspeaker without lows; common
+#: practice for the margin: a room's own colouring stays within about ±10 dB between octaves).
+SOURCE_WEAK_DB: float = 15.0
+
+
+def _tie_flags(band: Band, values: dict[str, float | None], decay: DecayFigures, onset: int,
+               gd_s: float, spread_s: float, fs: int, label: str) -> list[str]:
+    """Null C50 (with D50) and C80 when they contradict the band's own decay curve.
+
+    The decay curve of the time-reversed band (the one EDT and T are fitted on) gives at the
+    split time te, counted like the sums from the band's arrival, its level L(te) = 10 lg
+    (E(te)/E(0)), hence C_te = 10 lg(1/10^(L/10) − 1). The causal sums and this must agree
+    within :data:`TIE_DB` + :data:`TIE_DB_PER_MS`·spread; a gap wider than that means the late
+    energy was misread (a C50 of +56 dB beside a 1.5 s decay cannot pass).
+    """
+    flags: list[str] = []
+    curve = decay.edc_db
+    tol = TIE_DB + TIE_DB_PER_MS * spread_s * 1000.0
+    for te_s, key in ((0.050, "c50_db"), (0.080, "c80_db")):
+        v = values.get(key)
+        k = onset - int(round(gd_s * fs)) + int(round(te_s * fs)) - decay.onset
+        if v is None or curve.size == 0 or not 0 < k < curve.size or not np.isfinite(curve[k]):
+            continue
+        e = 10.0 ** (float(curve[k]) / 10.0)
+        if not 0 < e < 1:
+            continue
+        c_curve = 10.0 * math.log10(1.0 / e - 1.0)
+        if abs(v - c_curve) > tol:
+            name = _FIGURE_NAMES[key]
+            values[key] = None
+            if key == "c50_db":
+                values["d50"] = None
+            flags.append(f"{label}: {name}{' and D50' if key == 'c50_db' else ''} left out: "
+                         f"{name} of {v:+.1f} dB contradicts the band's own decay curve, which "
+                         f"gives {c_curve:+.1f} dB at {te_s * 1000:.0f} ms (more than "
+                         f"{tol:.1f} dB apart): the late energy was misread")
+    return flags
+
+
 def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
-                  y_direct: np.ndarray, fs: int, onset: int) -> BandFigures:
+                  y_direct: np.ndarray, fs: int, onset: int,
+                  context: ResponseContext | None = None) -> BandFigures:
     if band is None:
         decay = analyze_decay(y_rev, fs, onset=onset, bandwidth_hz=None, label="broadband")
         start = onset
         order = None
         label = "broadband"
-        spread = 0.0
+        gd = spread = 0.0
+        origin = decay.onset  # the same signal: the same clock
     else:
         label = band.name
         gd, spread = _filter_timing(band.kind, band.index, fs)
@@ -603,8 +737,12 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
                               label=label)
         start = min(onset + int(round(gd * fs)), y_causal.shape[0] - 2)
         order = filter_order(band, fs)
+        # time-reversed filtering moves the band's envelope about gd earlier than the
+        # broadband response, causal filtering gd later: the decay's clock on y_causal
+        origin = decay.onset + int(round(2.0 * gd * fs))
     energy = energy_figures(y_causal, fs, start=start, y_direct=y_direct, label=label,
-                            first=max(onset - int(round(0.001 * fs)), 0))
+                            first=max(onset - int(round(0.001 * fs)), 0), noise=decay.noise,
+                            noise_origin=origin, decay_range_db=decay.decay_range_db)
     flags = list(decay.flags) + list(energy.flags)
     if spread > 0.025:
         flags.append(f"{label}: the band filter spreads a click over {spread * 1000:.0f} ms, "
@@ -613,10 +751,13 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
         "edt_s": decay.edt_s, "t20_s": decay.t20_s, "t30_s": decay.t30_s,
         "c50_db": energy.c50_db, "c80_db": energy.c80_db, "d50": energy.d50,
         "ts_s": energy.ts_s, "drr_db": energy.drr_db}
+    if band is not None:
+        flags += _tie_flags(band, v, decay, onset, gd, spread, fs, label)
     # ξ guards T20/T30 only: the EDT range holds the direct sound and the first reflections,
     # whose bend is the point of EDT (measured: ξ = 138 ‰ for a real office IR at 250 Hz)
     flags += _plausibility(band, fs, v, label, {"t20_s": decay.xi_t20_permille,
                                                 "t30_s": decay.xi_t30_permille})
+    flags += _context_flags(band, v, decay, context, label)
     u20 = u30 = None
     if band is not None:
         if v["t20_s"] is not None:
@@ -631,8 +772,69 @@ def _band_figures(band: Band | None, y_rev: np.ndarray, y_causal: np.ndarray,
         filter_order=order)
 
 
+def _covered(band: Band, context: ResponseContext | None) -> bool:
+    """Whether the sweep of ``context`` excited the whole band (edges within 0.1 %)."""
+    if context is None or context.f1_hz is None or context.f2_hz is None:
+        return True
+    return band.f_lo_hz >= context.f1_hz * 0.999 and band.f_hi_hz <= context.f2_hz * 1.001
+
+
+def _context_flags(band: Band | None, values: dict[str, float | None], decay: DecayFigures,
+                   context: ResponseContext | None, label: str) -> list[str]:
+    """Null every figure of a band the sweep did not excite; say why a cut response's band
+    misses figures, and what gap the room needs."""
+    if context is None:
+        return []
+    flags: list[str] = []
+    if band is not None and not _covered(band, context):
+        for key in values:
+            values[key] = None
+        flags.append(f"{label}: outside the sweep ({context.f1_hz:g}–{context.f2_hz:g} Hz): "
+                     f"this band ({band.f_lo_hz:.0f}–{band.f_hi_hz:.0f} Hz) was not fully "
+                     "excited, so its figures are left out; sweep from an octave below it")
+        return flags
+    if context.cut_s is not None and not decay.noise_floor_found:
+        gap = (f" (at least --gap {context.gap_needed_s:g})"
+               if context.gap_needed_s is not None else "")
+        missing = [_FIGURE_NAMES[k] for k in ("edt_s", "t20_s", "t30_s", "c50_db", "c80_db",
+                                              "d50", "ts_s", "drr_db") if values[k] is None]
+        if missing:
+            flags.append(
+                f"{label}: the response ends {context.cut_s:.2f} s after the direct sound"
+                f"{', at ' + context.cut_by if context.cut_by else ''}, before this band's "
+                f"decay reaches the noise, so {', '.join(missing)} cannot be measured in full; "
+                f"make the sweep with a longer gap{gap}")
+    return flags
+
+
+def _source_level_flags(figures: list[BandFigures]) -> list[BandFigures]:
+    """Add to each band whose source level (energy per hertz) lies :data:`SOURCE_WEAK_DB` or
+    more below the median of the 500 Hz–2 kHz octaves a flag that says by how much."""
+    import dataclasses
+
+    level = {}
+    for bf in figures:
+        e = bf.energy.total_energy
+        if bf.band is not None and e is not None and e > 0:
+            level[bf.band] = 10.0 * math.log10(e / bf.band.bandwidth_hz)
+    mid = [v for b, v in level.items() if 450.0 <= b.center_hz <= 2300.0]
+    if not mid:
+        return figures
+    ref = float(np.median(mid))
+    out = []
+    for bf in figures:
+        lv = level.get(bf.band)
+        if lv is not None and lv < ref - SOURCE_WEAK_DB:
+            note = (f"{bf.label}: the source is {ref - lv:.0f} dB weaker in this band than at "
+                    "500 Hz–2 kHz (per hertz), a small loudspeaker?; its figures rest on what "
+                    "little it radiates here, and its decay range says how far")
+            bf = dataclasses.replace(bf, flags=bf.flags + (note,))
+        out.append(bf)
+    return out
+
+
 def _figures_for(h: np.ndarray, fs: int, bands: tuple[Band, ...], onset: int,
-                 direct: np.ndarray, direct_stop: int
+                 direct: np.ndarray, direct_stop: int, context: ResponseContext | None = None
                  ) -> tuple[list[BandFigures], dict[Band, np.ndarray]]:
     """The figures of each band, and each band's causally filtered IR (for the STI)."""
     if not bands:
@@ -648,8 +850,9 @@ def _figures_for(h: np.ndarray, fs: int, bands: tuple[Band, ...], onset: int,
     d = np.zeros(head)
     d[: direct.shape[0]] = direct[:head]
     yd = filter_bands(d, fs, bands, mode="causal")
-    figures = [_band_figures(b, yr[i], yc[i], yd[i], fs, onset) for i, b in enumerate(bands)]
-    return figures, dict(zip(bands, yc, strict=True))
+    figures = [_band_figures(b, yr[i], yc[i], yd[i], fs, onset, context)
+               for i, b in enumerate(bands)]
+    return _source_level_flags(figures), dict(zip(bands, yc, strict=True))
 
 
 def _mean2(a: float | None, b: float | None) -> float | None:
@@ -685,7 +888,7 @@ def analyze_ir(h: np.ndarray, fs: int, *,
                snr_db: float | np.ndarray | None = None,
                speech_spl_db: float | np.ndarray | None = None,
                noise_spl_db: float | np.ndarray | None = None,
-               sti: bool = True) -> RoomFigures:
+               sti: bool = True, context: ResponseContext | None = None) -> RoomFigures:
     """ISO 3382-1 figures per band, broadband, single numbers and STI of one impulse response.
 
     Parameters
@@ -709,6 +912,10 @@ def analyze_ir(h: np.ndarray, fs: int, *,
         neither, and not together with ``snr_db``.
     sti : bool
         Compute the STI (needs fs of about 32 kHz or more for the 8 kHz octave).
+    context : ResponseContext, optional
+        What the measurement excited and kept (:meth:`ImpulseResponse.context`, or the IR
+        file's sidecar): bands outside the sweep are left out, and a response cut before its
+        decay reached the noise says which figures that costs and what gap the room needs.
 
     Returns
     -------
@@ -750,13 +957,13 @@ def analyze_ir(h: np.ndarray, fs: int, *,
                              "long; give at least 100 ms (better: the whole decay)")
     onset = onset_index(h, fs)
     direct, direct_stop = _direct_part(h, fs, onset)
-    per_band, causal = _figures_for(h, fs, band_set, onset, direct, direct_stop)
+    per_band, causal = _figures_for(h, fs, band_set, onset, direct, direct_stop, context)
     # the STI's octaves are filtered already when they are among the analysed bands
     sti_octaves = band_centers("octave", 125.0, 8000.0)
     y_sti = (np.stack([causal[b] for b in sti_octaves])
              if sti and all(b in causal for b in sti_octaves) else None)
     del causal
-    broadband = _band_figures(None, h, h, direct, fs, onset)
+    broadband = _band_figures(None, h, h, direct, fs, onset, context)
 
     def find(label: str) -> BandFigures | None:
         for bf in per_band:
@@ -770,14 +977,19 @@ def analyze_ir(h: np.ndarray, fs: int, *,
             extra = make_bands(fs, "octave", 500.0, 1000.0)
         except ParameterError:
             extra = ()
-        got, _ = _figures_for(h, fs, extra, onset, direct, direct_stop)
+        got, _ = _figures_for(h, fs, extra, onset, direct, direct_stop, context)
         if len(got) == 2:
             b500, b1k = got
     singles = _single_numbers(b500, b1k)
 
     flags: list[str] = []
     sti_res = None
-    if sti:
+    uncovered = [b.name for b in sti_octaves if not _covered(b, context)]
+    if sti and uncovered:
+        flags.append(f"STI not computed: it needs the octaves 125 Hz–8 kHz, and the sweep "
+                     f"({context.f1_hz:g}–{context.f2_hz:g} Hz) does not cover "
+                     f"{', '.join(uncovered)}")
+    elif sti:
         try:
             sti_res = sti_from_ir(h, fs, onset=onset, snr_db=snr_db,
                                   speech_spl_db=speech_spl_db, noise_spl_db=noise_spl_db,
