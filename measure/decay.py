@@ -45,6 +45,7 @@ __all__ = [
     "schroeder",
     "lundeby",
     "decay_range_db",
+    "range_text",
     "fit_range",
     "decay_line",
     "fit_decay",
@@ -524,6 +525,12 @@ def _uniform_slope(y: np.ndarray) -> tuple[float, float, float]:
     return b, min(r2, 1.0), ym
 
 
+def range_text(v_db: float) -> str:
+    """A decay range in dB for a message, rounded down to 0.1 dB, so that a comparison with a
+    requirement reads true: "needs 35 dB, this band has 34.9 dB", never "... has 35 dB"."""
+    return f"{math.floor(v_db * 10.0) / 10.0:.1f}" if v_db < 100 else f"{v_db:.0f}"
+
+
 def decay_range_db(h: np.ndarray, nf: NoiseFloor) -> float:
     """Decay above the noise of a band-filtered IR, dB: the compensated Schroeder level at the
     truncation point, negated (ISO 3382-1:2009 5.3.3 compares it with each figure's need).
@@ -657,7 +664,7 @@ def analyze_decay(h_band: np.ndarray, fs: int, *, onset: int | None = None,
         xis[key] = None
         if decay_range < need:
             flags.append(f"{where}{name} needs {need:.0f} dB of decay above the noise, this "
-                         f"band has {decay_range:.0f} dB")
+                         f"band has {range_text(decay_range)} dB")
             continue
         fit = fit_decay(curve, fs, hi_db, lo_db, end_db=-decay_range)
         if fit is None:

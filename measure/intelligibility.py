@@ -327,7 +327,7 @@ def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
         shaped (7, n).
     """
     from measure.bands import filter_bands, make_bands
-    from measure.decay import lundeby, onset_index
+    from measure.decay import ENERGY_RANGE_DB, decay_range_db, lundeby, onset_index, range_text
 
     h = check_signal(h, "h", ndim=(1,))
     fs = check_fs(fs)
@@ -345,19 +345,30 @@ def mtf_from_ir(h: np.ndarray, fs: int, *, onset: int | None = None,
                                  f"signals 125 Hz–8 kHz of h, shape (7, {h.shape[0]})")
     out = np.empty((7, 14))
     flags = []
+    short: list[str] = []
     for k, (band, y) in enumerate(zip(bands, yb, strict=True)):
         seg = y[i0:]
         nf = lundeby(seg, fs)
-        if nf.ok and nf.late_fit_db is not None:
+        rng = decay_range_db(seg, nf) if nf.ok else 0.0
+        if not rng >= ENERGY_RANGE_DB:
+            short.append(f"{band.label} ({range_text(rng)} dB)")
+            continue
+        if nf.late_fit_db is not None:
             a, b = nf.late_fit_db
             out[k] = mtf_from_band(seg, fs, stop_index=nf.truncation_index, tail_a_db=a,
                                    tail_b_db_per_s=b,
                                    noise_power=nf.noise_power if nf.noise_floor_found else 0.0)
         else:
-            flags.append(f"STI {band.name} band: no decay above the noise "
-                         f"({nf.reason}); the whole band IR is used as it is")
             out[k] = mtf_from_band(seg, fs)
+    if short:
+        # the MTF weighs the late energy as the clarity figures do: the same requirement
+        raise ParameterError(
+            f"the STI needs every octave 125 Hz–8 kHz measured over {ENERGY_RANGE_DB:.0f} dB "
+            f"above the noise, and the {', '.join(short)} octave"
+            f"{'s have' if len(short) > 1 else ' has'} less; raise the level, lengthen the "
+            "sweep or quieten the room")
     return out, tuple(flags)
+
 
 
 def _octave_levels(v: float | np.ndarray, name: str) -> np.ndarray:

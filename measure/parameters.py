@@ -66,6 +66,7 @@ from measure.decay import (
     analyze_decay,
     lundeby,
     onset_index,
+    range_text,
 )
 from measure.deconvolve import ResponseContext
 from measure.errors import ParameterError
@@ -304,7 +305,7 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
         return EnergyFigures(**none, start_index=start, flags=(
             f"{where}C50, C80, D50, Ts and DRR need the decay measured over "
             f"{ENERGY_RANGE_DB:.0f} dB above the noise; this band has only "
-            f"{_floor_db(decay_range_db)} dB, so its late energy is mostly noise",))
+            f"{range_text(decay_range_db)} dB, so its late energy is mostly noise",))
     if noise is None:
         nf = lundeby(seg, fs)
         n1 = nf.truncation_index
@@ -392,11 +393,6 @@ def energy_figures(y: np.ndarray, fs: int, *, start: int, y_direct: np.ndarray |
     return EnergyFigures(out["c50_db"], out["c80_db"], None if d50 is None else float(d50),
                          None if ts is None else float(ts), drr, start, tuple(flags),
                          total_energy=float(total))
-
-
-def _floor_db(v: float) -> str:
-    """A dB range rounded down, so that "needs 35 dB, has 34" reads true at 34.9 dB."""
-    return f"{math.floor(v * 10.0) / 10.0:.1f}" if v < 100 else f"{v:.0f}"
 
 
 @dataclass(frozen=True, slots=True, eq=False)

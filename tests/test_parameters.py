@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 import pytest
@@ -205,8 +206,13 @@ def test_noise_gives_null_t30_with_reason(rng):
     figs = analyze_ir(_room_like_ir(rng, snr_db=30.0), FS, sti=False)
     b = figs.band("1k")
     assert b.t30_s is None and b.t20_s is None and b.edt_s is not None
-    assert any("T30 needs 45 dB of decay above the noise, this band has 3" in f
-               for f in b.flags), b.flags
+    # the range is printed rounded down, so the comparison reads true; it is the 30 dB the
+    # response was made with, within the 2 dB a noise-floor estimate from 0.1-0.2 s of
+    # band-limited noise allows (decay.lundeby: noise from the tail, common practice)
+    got = [re.search(r"T30 needs 45 dB of decay above the noise, this band has (\d+\.\d) dB", f)
+           for f in b.flags]
+    got = [float(m.group(1)) for m in got if m]
+    assert got and 28.0 <= got[0] <= 32.0, b.flags
     assert b.to_dict()["t30_s"] is None
 
 
