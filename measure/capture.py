@@ -51,6 +51,8 @@ __all__ = [
     "octaves_inside",
     "analyze_level",
     "judge_take",
+    "figure_reasons",
+    "VERDICT_T20_OCTAVES",
 ]
 
 #: What to install when PortAudio is missing (shown by ``measure devices`` and ``measure capture``).
@@ -725,6 +727,51 @@ def analyze_level(y: np.ndarray, fs: int, take_spec: Any, *, channels: Sequence[
                        noise_rms_dbfs=tuple(noises), n_clipped=tuple(clips),
                        step_reached_db=float(step_db), pnr_db=tuple(pnrs),
                        octave_pnr_db=tuple(octs), found=tuple(found), warnings=tuple(warns))
+
+
+#: The octaves in which a take must give T20 to be good (where its sweep covers them): the
+#: 250 Hz–4 kHz this tool asks of a take, between the survey grade's 250 Hz–2 kHz and the
+#: engineering grade's 125 Hz–4 kHz of ISO 3382-2:2008 (measurement.md §2.4, from memory).
+VERDICT_T20_OCTAVES: tuple[str, ...] = ("250", "500", "1k", "2k", "4k")
+
+
+def figure_reasons(doc: dict[str, Any], label: str, *, cut: bool = False,
+                   gap_needed_s: float | None = None) -> list[str]:
+    """Why a take cannot give the figures it was made for (empty when it can), and what to do.
+
+    ``doc`` is the channel's :meth:`measure.parameters.RoomFigures.to_dict`; a take must give
+    T20 in every octave of :data:`VERDICT_T20_OCTAVES` that it analysed, unless what keeps
+    T20 out is the room rather than the take (a decay too short for the band filter: another
+    take would not help). ``cut`` says the response ended before its decay reached the noise
+    (then the gap is too short).
+    """
+    from measure.decay import REQUIRED_RANGE_DB
+
+    bands = doc.get("bands") or []
+    details = (doc.get("details") or {}).get("bands") or [{}] * len(bands)
+    missing = []
+    for b, d in zip(bands, details, strict=False):
+        if b.get("label") not in VERDICT_T20_OCTAVES or b.get("t20_s") is not None:
+            continue
+        rng = d.get("decay_range_db")
+        short = isinstance(rng, (int, float)) and rng < REQUIRED_RANGE_DB["t20"]
+        ended = any("the response ends" in f for f in b.get("flags", []))
+        if short or ended:
+            missing.append((b["label"], rng))
+    if not missing:
+        return []
+    names = ", ".join(lab for lab, _ in missing)
+    what = (f"{label}: T20 is missing in the {names} octave{'s' if len(missing) > 1 else ''} "
+            f"(a take must give it at 250 Hz–4 kHz)")
+    if cut:
+        gap = f" (at least --gap {gap_needed_s:g})" if gap_needed_s is not None else ""
+        return [f"{what}: the response ends before its decay reaches the noise; make the sweep "
+                f"with a longer gap{gap} and record again"]
+    ranges = [r for _, r in missing if isinstance(r, (int, float))]
+    have = f" (at most {max(ranges):.0f} dB of decay above the noise there)" if ranges else ""
+    return [f"{what}: T20 needs 35 dB of decay above the noise{have}; raise the level step by "
+            "step, use a longer sweep or more repeats, or make the room quieter, and record "
+            "again"]
 
 
 @dataclass(frozen=True, slots=True, eq=False)

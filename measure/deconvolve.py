@@ -71,6 +71,7 @@ __all__ = [
     "response_length",
     "predicted_noise_power",
     "length_bands_hz",
+    "sweep_recording_evidence",
     "default_pre_s",
     "IR_FORMAT",
 ]
@@ -324,7 +325,8 @@ class ImpulseResponse:
              "noise_dbfs": nz, "harmonic_distortion": [hd.to_dict() for hd in hds],
              "noise_reached": (self.noise_reached[i] if self.noise_reached else None),
              "bands_not_reaching_the_noise": (list(self.unreached_bands[i])
-                                              if self.unreached_bands else [])}
+                                              if self.unreached_bands else []),
+             "context": self.context(i).to_dict()}
             for i, (c, lat, pnr, nz, hds) in enumerate(zip(
                 self.channels, self.latency_s, self.peak_to_noise_db, self.noise_dbfs,
                 self.harmonics, strict=True))
@@ -1168,6 +1170,76 @@ def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *,
     return HarmonicDistortion(order, adv, 10 * math.log10(ratio + 1e-300),
                               100.0 * math.sqrt(ratio), True,
                               100.0 * math.sqrt(pz / p1) if pz > 0 else None)
+
+
+# ---------------------------------------------------------------------------------------------
+# Is this a recording of a sweep rather than an impulse response?
+
+#: A sweep recording stays within 20 dB of its loudest frame for at least this long while its
+#: strongest frequency rises steadily; an impulse response is loud for its direct sound and
+#: first reflections only, and its strongest frequency wanders and falls as the highs decay
+#: first (common practice for telling the two apart; thresholds measured on this project's
+#: virtual takes and rooms, see tests/test_deconvolve.py).
+SWEEP_LOUD_S = 0.5
+SWEEP_MIN_OCTAVES = 3.0
+SWEEP_MIN_CORRELATION = 0.9
+
+
+def sweep_recording_evidence(x: np.ndarray, fs: int) -> str | None:
+    """Why ``x`` looks like a recording of a sweep (a rising chirp), or None if it does not.
+
+    Frames of about 40 ms (half overlapping) are reduced to their energy and strongest
+    frequency; in the longest run of frames within 20 dB of the loudest, a sweep's strongest
+    frequency rises (log frequency against time: correlation at least
+    :data:`SWEEP_MIN_CORRELATION`) over at least :data:`SWEEP_MIN_OCTAVES` octaves, for at
+    least :data:`SWEEP_LOUD_S`.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    n_fr = 1 << int(round(math.log2(max(0.04 * fs, 64))))
+    hop = max(n_fr // 2, (x.size - n_fr) // 6000 + 1)  # at most ~6000 frames
+    if x.size < n_fr * 4:
+        return None
+    starts = np.arange(0, x.size - n_fr, hop)
+    win = np.hanning(n_fr)
+    f = np.fft.rfftfreq(n_fr, 1.0 / fs)
+    use = (f >= 20.0) & (f <= 0.45 * fs)
+    energy = np.empty(starts.size)
+    peak_hz = np.empty(starts.size)
+    for i0 in range(0, starts.size, 256):  # frames in blocks: bounded memory
+        idx = starts[i0:i0 + 256]
+        frames = x[idx[:, None] + np.arange(n_fr)] * win
+        spec = np.abs(np.fft.rfft(frames, axis=1)) ** 2
+        energy[i0:i0 + idx.size] = spec.sum(axis=1)
+        peak_hz[i0:i0 + idx.size] = f[use][np.argmax(spec[:, use], axis=1)]
+    if not energy.max() > 0:
+        return None
+    loud = energy >= energy.max() * 0.01
+    # the longest run of loud frames
+    best = (0, 0)
+    i = 0
+    while i < loud.size:
+        if loud[i]:
+            j = i
+            while j + 1 < loud.size and loud[j + 1]:
+                j += 1
+            if j - i > best[1] - best[0]:
+                best = (i, j)
+            i = j + 1
+        else:
+            i += 1
+    a, b = best
+    dur_s = (b - a + 1) * hop / fs
+    if dur_s < SWEEP_LOUD_S or b - a < 8:
+        return None
+    t = starts[a:b + 1] / fs
+    lf = np.log2(np.maximum(peak_hz[a:b + 1], 1.0))
+    if np.ptp(lf) < SWEEP_MIN_OCTAVES or np.std(t) == 0 or np.std(lf) == 0:
+        return None
+    r = float(np.corrcoef(t, lf)[0, 1])
+    if r < SWEEP_MIN_CORRELATION:
+        return None
+    return (f"it stays loud for {dur_s:.1f} s while its strongest frequency rises from "
+            f"{2 ** lf.min():.0f} Hz to {2 ** lf.max():.0f} Hz")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -92,10 +92,12 @@ def run(args: argparse.Namespace) -> int:
         for w in capture.warnings:
             warn(w)
         h = capture.h[0]
+        context = capture.context(0)
     else:
         h = audio.x[ch]
+        context = response_context(args.input, h, audio.fs, ch)
     figs = analyze_ir(h, audio.fs, bands=args.bands, speech_spl_db=speech_spl,
-                      noise_spl_db=noise_spl)
+                      noise_spl_db=noise_spl, context=context)
     doc = figs.to_dict()
     if capture is not None:
         doc["latency_s"] = capture.latency_s[0]
@@ -117,6 +119,49 @@ def run(args: argparse.Namespace) -> int:
                             n_channels=audio.n_channels, n_samples=h.shape[-1],
                             sweep=args.sweep))
     return 0
+
+
+def response_context(path: str, h, fs: int, channel: int):
+    """What an impulse-response file's sidecar says about its measurement (sweep range, a cut
+    tail), or None; refuses a file that is a take or a sweep, by its sidecar or its content.
+
+    Raises
+    ------
+    ParameterError
+        If the file is a recording of a sweep (a take) or a sweep file: an impulse response
+        must be recovered from it first.
+    """
+    from measure import audio_io
+    from measure.deconvolve import IR_FORMAT, ResponseContext, sweep_recording_evidence
+    from measure.errors import ParameterError
+    from measure.session import TAKE_FORMAT
+    from measure.sweep import SIDECAR_FORMAT
+
+    advice = "give --sweep SWEEP.wav (the sweep that was played) to recover its response first"
+    side = audio_io.sidecar_path(path)
+    doc = audio_io.read_json(side) if side.exists() else {}
+    fmt = doc.get("format") if isinstance(doc, dict) else None
+    if fmt == TAKE_FORMAT:
+        named = doc.get("sweep_file")
+        raise ParameterError(
+            f"{path}: this is a recording of a sweep (its sidecar {side.name} says it is a "
+            f"take); {advice}" + (f", here {named}" if named else ""))
+    if fmt == SIDECAR_FORMAT:
+        raise ParameterError(
+            f"{path}: this is a sweep file, what is played (its sidecar {side.name} says so), "
+            "not a room's response; play it in the room, record it, and analyse the recording "
+            "with --sweep")
+    evidence = sweep_recording_evidence(h, fs)
+    if evidence is not None:
+        raise ParameterError(f"{path}: this is a recording of a sweep ({evidence}); {advice}")
+    if fmt != IR_FORMAT:
+        return None
+    chans = doc.get("channels") if isinstance(doc.get("channels"), list) else []
+    if channel < len(chans) and isinstance(chans[channel], dict) \
+            and isinstance(chans[channel].get("context"), dict):
+        return ResponseContext.from_dict(chans[channel]["context"])
+    sweep = doc.get("sweep") if isinstance(doc.get("sweep"), dict) else {}
+    return ResponseContext.from_dict({"f1_hz": sweep.get("f1_hz"), "f2_hz": sweep.get("f2_hz")})
 
 
 def _octave_levels(text: str | None, option: str) -> float | list[float] | None:

@@ -397,11 +397,15 @@ def _run(args: argparse.Namespace, stage: dict[str, Any]) -> int:
 
 def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
                  input_channels: Any, loopback: int | None, n_xruns: int,
-                 same_device: bool) -> dict[str, Any]:
-    """Recover the IR, measure figures and judge the take; returns a JSON-ready summary."""
+                 same_device: bool, ir: Any = None, figures: Any = None) -> dict[str, Any]:
+    """Recover the IR, measure figures and judge the take; returns a JSON-ready summary.
+
+    ``ir`` and ``figures`` (as :func:`room_figures` returns them) may be given when the caller
+    has them already (the demo), so that the take is judged exactly as ``capture`` would.
+    """
     import math
 
-    from measure.capture import FOUND_PNR_DB, judge_take
+    from measure.capture import FOUND_PNR_DB, figure_reasons, judge_take
     from measure.deconvolve import recover_ir
     from measure.errors import MeasureError
 
@@ -416,8 +420,7 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
         ref_row = None
     mic_rows = [i for i, c in enumerate(input_channels)
                 if c != loopback and stats[i].peak_dbfs is not None]
-    ir = None
-    if mic_rows:
+    if ir is None and mic_rows:
         try:
             ir = recover_ir(y, sweep, channels=mic_rows, reference_channel=ref_row)
         except MeasureError as err:
@@ -449,7 +452,11 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
         analysis["drift_ppm"] = ir.drift_ppm
         analysis["n_averaged"] = ir.n_averaged
         analysis["referenced_to_loopback"] = ir.reference_channel is not None
-        analysis["figures"] = room_figures(ir, sweep)
+        analysis["figures"] = room_figures(ir, sweep) if figures is None else figures
+        for k, (row, fig) in enumerate(zip(ir.channels, analysis["figures"], strict=True)):
+            if "error" not in fig:
+                extra += figure_reasons(fig, labels[row], cut=not ir.noise_reached[k],
+                                        gap_needed_s=ir.gap_needed_s)
     for i, st in enumerate(stats):
         if st.peak_dbfs is None:
             found[i] = False
@@ -480,7 +487,7 @@ def room_figures(ir: Any, sweep: Any) -> list[dict[str, Any]]:
         else:
             try:
                 fig = analyze_ir(ir.h[k], ir.fs, bands="octave", f_lo_hz=max(63.0, inside[0]),
-                                 f_hi_hz=min(8000.0, inside[-1]))
+                                 f_hi_hz=min(8000.0, inside[-1]), context=ir.context(k))
                 entry.update(fig.to_dict())
             except MeasureError as err:
                 entry["error"] = str(err)
