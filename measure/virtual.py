@@ -368,4 +368,10 @@ DEMO_ROOMS: tuple[VirtualRoom, ...] = (
                  direct_delay_s=0.0233, drr_db=-9.0,
                  reflections=((0.0062, 0.50), (0.0187, 0.33), (0.0311, -0.27), (0.0436, 0.2)),
                  length_s=4.5, tail_onset_s=0.006),
+    # A concrete plant room beside the boiler house: hard walls, pipes and tanks; it is
+    # measured while the ventilation runs (its rumble is in the demo's take, not here).
+    _octave_room("plant-room", (2.3, 2.1, 1.9, 1.8, 1.7, 1.5, 1.2, 0.8),
+                 direct_delay_s=0.0146, drr_db=-5.0,
+                 reflections=((0.0035, 0.45), (0.0081, -0.31), (0.0149, 0.26)),
+                 length_s=3.5, tail_onset_s=0.004),
 )

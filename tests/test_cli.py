@@ -170,18 +170,36 @@ def test_demo_runs_end_to_end_without_hardware(tmp_path, capsys):
     code, out, err = run(["demo", "--out", str(tmp_path / "demo")], capsys)
     assert code == 0
     root = tmp_path / "demo"
+    from measure.audio_io import read_audio
+    from measure.deconvolve import CLIP_LEVEL
+    from measure.demo import DEMO_TAKES
+
+    n = len(DEMO_TAKES)
     assert (root / "sweeps" / "demo-sweep.wav").exists()
-    assert len(list((root / "captures").glob("*/*-take1.wav"))) == 3
-    assert len(list((root / "irs").glob("*.wav"))) == 3
+    takes = sorted((root / "captures").glob("*/*-take1.wav"))
+    assert len(takes) == n == 4
+    for take in takes:
+        # no clipped take (the parking level used to reach +1.7 dBFS), and each one judged as
+        # `measure capture` judges a take; the demo's takes pass its own verdict
+        assert np.max(np.abs(read_audio(take).x)) < CLIP_LEVEL * 10 ** (-3 / 20)
+        side = json.loads(take.with_suffix(".json").read_text())
+        assert side["verdict"]["verdict"] == "good", side["verdict"]
+    assert len(list((root / "irs").glob("*.wav"))) == n
+    # the plant room's ventilation rumble buries its lowest octaves: null, with the reason
+    plant = json.loads((root / "figures" / "plant-room-door-side.json").read_text())
+    low = {b["label"]: b for b in plant["bands"]}
+    assert low["63"]["t20_s"] is None and any("T20 needs 35 dB" in f for f in low["63"]["flags"])
+    assert low["1k"]["t20_s"] is not None
+    assert "plant-room: what is not measurable, and why" in out
     for fig in (root / "figures").glob("*.json"):
         doc = json.loads(fig.read_text())
         assert doc["drift_ppm"] == pytest.approx(23.0, abs=2.0)  # the demo's virtual USB mic
     assert "stairwell" in out and "Look in" in out
     models = [p for p in (root / "models").glob("*.json") if not p.name.endswith("-report.json")]
-    assert len(models) == 3
+    assert len(models) == n
     for m in models:
         assert json.loads(m.read_text())["i3dl2"]["values"]["DecayTime"] > 0
     assert (root / "listen" / "dry.wav").exists()
-    assert len(list((root / "listen").glob("*-measured.wav"))) == 3
-    assert len(list((root / "listen").glob("*-modelled.wav"))) == 3
-    assert len(list((root / "plots").glob("*.png"))) == 6
+    assert len(list((root / "listen").glob("*-measured.wav"))) == n
+    assert len(list((root / "listen").glob("*-modelled.wav"))) == n
+    assert len(list((root / "plots").glob("*.png"))) == 2 * n

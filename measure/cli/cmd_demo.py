@@ -32,15 +32,18 @@ def _new_folder(out: str | None) -> Path:
 
 
 def run(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from measure import audio_io, session
+    from measure.capture import input_stats
     from measure.cli._common import info
+    from measure.cli.cmd_capture import analyse_take
     from measure.deconvolve import recover_ir
-    from measure.demo import BUILDING, DEMO_SWEEP, DEMO_TAKES
+    from measure.demo import BUILDING, DEMO_SWEEP, DEMO_TAKES, demo_recording
     from measure.errors import AudioFileError
     from measure.model.fit import model_demo
     from measure.parameters import analyze_ir
     from measure.sweep import make_sweep
-    from measure.virtual import room_ir, virtual_take
 
     root = _new_folder(args.out)
     try:
@@ -58,18 +61,15 @@ def run(args: argparse.Namespace) -> int:
     rows = []
     for i, t in enumerate(DEMO_TAKES):
         info(f"  {t.room.name}: recording the take, recovering the response, analysing ...")
-        h_true = room_ir(t.room, sweep.fs, seed=100 + i)
-        y = virtual_take(sweep.program, sweep.fs, h_true, latency_s=t.latency_s,
-                         drift_ppm=t.drift_ppm, hd2_percent=t.hd2_percent,
-                         hd3_percent=t.hd3_percent, noise_dbfs=t.noise_dbfs, extra_s=0.5,
-                         seed=200 + i)
+        _, y = demo_recording(i, sweep.program, sweep.fs)
         take = session.save_take(captures, t.room.name, t.position, y, sweep.fs, {
             "source": "virtual (measure demo)", "building": BUILDING,
             "description": t.description, "sweep_file": str(sweep_wav),
             "sweep_sha256": sweep_sha256, "distance_m": t.distance_m,
             "virtual_equipment": {"latency_s": t.latency_s, "drift_ppm": t.drift_ppm,
                                   "hd2_percent": t.hd2_percent, "hd3_percent": t.hd3_percent,
-                                  "noise_dbfs": t.noise_dbfs}})
+                                  "noise_dbfs": t.noise_dbfs, "noise_kind": t.noise_kind,
+                                  "input_gain_db": t.gain_db}})
         ir = recover_ir(y, sweep)
         ir_wav = root / "irs" / f"{t.room.name}-{t.position}.wav"
         audio_io.write_ir(ir_wav, ir, sweep=sweep, sources={
@@ -77,10 +77,18 @@ def run(args: argparse.Namespace) -> int:
             "sweep": str(sweep_wav), "sweep_sha256": sweep_sha256})
         stem = f"{t.room.name}-{t.position}"
         h = ir.h[0]
-        figures = analyze_ir(h, ir.fs)
+        figures = analyze_ir(h, ir.fs, context=ir.context(0))
         doc = figures.to_dict()
         doc.update(latency_s=ir.latency_s[0], drift_ppm=ir.drift_ppm)
         audio_io.write_json(root / "figures" / f"{stem}.json", doc)
+        # the take judged as `measure capture` judges one (the verdict goes in its sidecar)
+        y2 = y[np.newaxis, :]
+        verdict = analyse_take(
+            y2, sweep.fs, sweep,
+            stats=input_stats(y2, slice(sweep.spec.n_lead // 6, sweep.spec.n_lead)),
+            labels=["microphone"], input_channels=[0], loopback=None, n_xruns=0,
+            same_device=False, ir=ir, figures=[{"file_channel": 1, **doc}])["verdict"]
+        session.update_sidecar(take, verdict=verdict)
 
         info(f"  {t.room.name}: fitting the compact model, rendering, auralizing ...")
         md = model_demo(h, ir.fs, source={"file": ir_wav.name, "room": t.room.name,
@@ -94,7 +102,7 @@ def run(args: argparse.Namespace) -> int:
         audio_io.write_json(root / "models" / f"{stem}-report.json",
                             {"report": md.result.report.to_dict(), "i3dl2": md.i3dl2.to_dict()})
         plots = _plots(root / "plots", stem, h, ir.fs, figures, md, t)
-        rows.append((t, ir, doc, md, plots))
+        rows.append((t, ir, doc, md, plots, verdict))
     print(_summary(rows, root))
     return 0
 
@@ -126,33 +134,52 @@ def _fmt(v, spec: str, unit: str = "") -> str:
 def _summary(rows, root: Path) -> str:
     from measure.demo import BUILDING
 
-    head = (f"{'space':<10} {'position':<10} {'T_mid':>6} {'EDT_mid':>7} {'C80':>6} "
-            f"{'D50':>5} {'STI':>5} {'PNR':>6} {'drift':>7} {'model':>6} {'I3DL2 DecayTime':>15}")
+    head = (f"{'space':<11} {'position':<10} {'T_mid':>6} {'EDT_mid':>7} {'C80':>6} "
+            f"{'D50':>5} {'STI':>5} {'PNR':>6} {'drift':>9} {'model':>9} "
+            f"{'I3DL2 DecayTime':>15}  verdict")
     lines = [f"{BUILDING} (invented), measured with virtual equipment", "", head,
              "-" * len(head)]
     plotted = False
-    for t, ir, doc, md, plots in rows:
+    notes: list[str] = []
+    for t, ir, doc, md, plots, verdict in rows:
         sn = doc.get("single_numbers", {})
         worst = md.result.report.max_abs_jnd()
         worst_t = max((abs(v) for k, v in worst.items()
                        if k in ("edt_s", "t30_s") and v is not None), default=None)
         decay = md.i3dl2.to_dict().get("values", {}).get("DecayTime")
         plotted = plotted or plots
+        good = verdict["verdict"] == "good"
         lines.append(
-            f"{t.room.name:<10} {t.position:<10} {_fmt(sn.get('t_mid_s'), '6.2f')} "
+            f"{t.room.name:<11} {t.position:<10} {_fmt(sn.get('t_mid_s'), '6.2f')} "
             f"{_fmt(sn.get('edt_mid_s'), '7.2f')} {_fmt(sn.get('c80_mid_db'), '6.1f')} "
             f"{_fmt(sn.get('d50_mid'), '5.2f')} {_fmt(doc.get('sti'), '5.2f')} "
-            f"{ir.peak_to_noise_db[0]:6.1f} {ir.drift_ppm:+6.1f}p "
-            f"{_fmt(worst_t, '5.1f')}J {_fmt(decay, '13.2f')} s")
+            f"{ir.peak_to_noise_db[0]:6.1f} {ir.drift_ppm:+5.1f} ppm "
+            f"{_fmt(worst_t, '4.1f')} JND {_fmt(decay, '13.2f')} s  "
+            f"{'GOOD' if good else 'REDO'}")
+        for r in verdict["reasons"]:
+            notes.append(f"  {t.room.name}: REDO: {r}")
+        missing = [f for b in doc["bands"] for f in b["flags"]
+                   if any(w in f for w in ("needs", "left out", "cannot be measured",
+                                           "outside the sweep", "weaker"))]
+        if missing:
+            notes.append(f"  {t.room.name}: what is not measurable, and why:")
+            notes.extend(f"    - {f}" for f in missing[:8])
+            if len(missing) > 8:
+                notes.append(f"    ... {len(missing) - 8} more in figures/"
+                             f"{t.room.name}-{t.position}.json")
     lines += ["",
-              "T_mid, EDT_mid: s, mean of 500 Hz and 1 kHz; C80: dB; PNR: peak-to-noise, dB; "
-              "drift: ppm;",
+              "T_mid, EDT_mid: seconds, mean of 500 Hz and 1 kHz; C80: dB; PNR: the impulse "
+              "response's peak-to-noise ratio, dB;",
               "model: the fitted model's worst EDT/T30 difference from the measurement, in "
-              "ISO 3382-1 JNDs.",
-              "",
+              "ISO 3382-1 just-noticeable differences (JND);",
+              "verdict: as `measure capture` judges a take (GOOD, or REDO with what to change)."]
+    if notes:
+        lines += ["", *notes]
+    lines += ["",
               f"Look in {root}/:",
               "  sweeps/    what was played (WAV + sidecar)",
-              "  captures/  the raw takes and their sidecars, as `measure capture` files them",
+              "  captures/  the raw takes and their sidecars (with the verdict), as `measure "
+              "capture` files them",
               "  irs/       recovered impulse responses (32-bit float) + latency, drift, distortion",
               "  figures/   per-band room figures (the `measure analyze --json` document)",
               "  models/    compact models (MODEL.json), their renders and fit reports with I3DL2",
