@@ -432,12 +432,21 @@ def locate_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
     # the lags at which a whole sweep was recorded, and at least MIN_NOISE_LAGS_S of them
     n_noise = min(max(n_recorded - spec.n_sweep + 1, int(MIN_NOISE_LAGS_S * spec.fs)), n_recorded)
     noise = _noise_rms(d[:n_noise])
+    advice = ("check that the microphone is connected and the right input is chosen, the "
+              "loudspeaker is on, and the recording matches this sweep file")
     if not peak > noise * 10.0 ** (DETECTION_DB / 20.0):
         raise AudioFileError(
             f"no sweep found in the recording (its strongest response is only "
             f"{20 * math.log10(max(peak, 1e-300) / noise):.1f} dB above the noise, "
-            f"{DETECTION_DB:g} dB needed); check that the microphone is connected and the right "
-            "input is chosen, the loudspeaker is on, and the recording matches this sweep file")
+            f"{DETECTION_DB:g} dB needed); {advice}")
+    # A recording of another sweep deconvolves to a chirp, whose peak can stand far above the
+    # noise of a quiet room; its octaves arrive at different times (:func:`_arrival_spread_s`)
+    spread = _arrival_spread_s(d, p, n_recorded, spec)
+    if spread is not None and spread > MAX_ARRIVAL_SPREAD_S:
+        raise AudioFileError(
+            "no sweep found in the recording (what it holds deconvolves to a chirp, not an "
+            f"impulse response: its octaves arrive {spread:.2f} s apart, as a recording of "
+            f"another sweep does); {advice}")
     P = spec.n_period
     R = spec.repeats
     present: dict[int, int] = {0: p}
@@ -465,6 +474,50 @@ def locate_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
         i0 = int(np.argmax(sums))
         found = found[i0:i0 + R]
     return np.asarray(found, dtype=np.int64)
+
+
+#: The octaves of a response arrive together: their strongest 5 ms lie within this of each
+#: other. In a room the direct sound (or, with a weak one, the reverberation's first tens of
+#: milliseconds) is every octave's strongest moment, and even 300 ppm of uncorrected drift
+#: disperses the direct sound by under 2 ms (measurement.md §1.6); the octaves of a recording
+#: of another sweep deconvolved by this one arrive (L_b − L_a)·ln(f/f1) apart (the difference of
+#: the two sweeps' group delays, derived), seconds for sweeps of different lengths or ranges.
+#: A sweep within a few percent of this one's length passes (its response is then only
+#: dispersed; common practice for the bound).
+MAX_ARRIVAL_SPREAD_S = 0.25
+#: An octave counts for the arrival check when its strongest 5 ms stand this far above its
+#: median 5 ms (the noise): below, its peak is where the noise happened to be.
+ARRIVAL_PROMINENCE_DB = 15.0
+
+
+def _arrival_spread_s(d: np.ndarray, p: int, n_recorded: int, spec: SweepSpec) -> float | None:
+    """Spread (s) of the octaves' arrival times within ±2 s of the peak ``p`` of ``d``, or None
+    when fewer than three octaves stand out of their noise there."""
+    from scipy.fft import irfft, rfft
+
+    fs = spec.fs
+    # negative lags wrap to the end of d (n_recorded … d.size − 1): a mismatched sweep's
+    # octaves may arrive there; the window never wraps onto itself
+    lo = max(p - 2 * fs, n_recorded - d.size)
+    seg = d.take(np.arange(lo, min(p + 2 * fs, n_recorded)), mode="wrap")
+    bands = length_bands_hz(spec.f1_hz, spec.f2_hz, fs)
+    if len(bands) < 3 or seg.size < int(0.1 * fs):
+        return None
+    n_fft = _fft_len(seg.size)
+    S = rfft(seg, n_fft)
+    masks = _band_masks(bands, np.fft.rfftfreq(n_fft, 1.0 / fs))
+    block = int(0.005 * fs)
+    nb = seg.size // block
+    times = []
+    for m in masks:
+        x = irfft(S * m, n_fft)[:nb * block]
+        e = np.mean(x.reshape(nb, block) ** 2, axis=1)
+        k = int(np.argmax(e))
+        if e[k] > float(np.median(e)) * 10.0 ** (ARRIVAL_PROMINENCE_DB / 10.0):
+            times.append(k * block / fs)
+    if len(times) < 3:
+        return None
+    return max(times) - min(times)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -77,8 +77,8 @@ def _write(path: Path, x: np.ndarray, fs: int = FS, subtype: str = "FLOAT") -> P
     return path
 
 
-@pytest.mark.parametrize("case", ["missing", "unreadable", "short", "no-sweep", "rate",
-                                  "no-sidecar", "bad-sidecar", "nan"])
+@pytest.mark.parametrize("case", ["missing", "unreadable", "short", "no-sweep", "silence",
+                                  "another-sweep", "rate", "no-sidecar", "bad-sidecar", "nan"])
 def test_each_bad_input_is_one_error_line_exit_2_and_writes_nothing(
         case, tmp_path, sweep_file, capture_file, capsys):
     capture, sweep = capture_file, sweep_file
@@ -92,6 +92,16 @@ def test_each_bad_input_is_one_error_line_exit_2_and_writes_nothing(
     elif case == "no-sweep":
         rng = np.random.default_rng(0)
         capture = _write(tmp_path / "noise.wav", 0.01 * rng.standard_normal(5 * FS))
+    elif case == "silence":
+        capture = _write(tmp_path / "silence.wav", np.zeros(5 * FS), subtype="PCM_16")
+    elif case == "another-sweep":
+        # a quiet take of a 3 s 50 Hz-16 kHz sweep given with the 2 s 20 Hz-Nyquist sweep file
+        from measure.sweep import SweepSpec, make_sweep
+
+        other = make_sweep(SweepSpec(fs=FS, f1_hz=50.0, f2_hz=16000.0, duration_s=3.0))
+        capture = _write(tmp_path / "other.wav", virtual_take(
+            other.program, FS, room_ir(DEMO_ROOMS[1], FS), latency_s=0.05, noise_dbfs=-80.0,
+            extra_s=0.5))
     elif case == "rate":
         data, _ = sf.read(capture_file)
         capture = _write(tmp_path / "44k.wav", data, fs=44100)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 
 import numpy as np
 import pytest
@@ -213,3 +214,66 @@ def test_sti_with_speech_and_noise_levels(tmp_path, capsys, only_analyze):
     code, out0, err = _run(capsys, ["analyze", str(path), "--json"])
     assert json.loads(out0)["sti"] == pytest.approx(0.589, abs=0.005)
     assert json.loads(out0)["details"]["sti"]["masking_and_threshold"] is False
+
+
+def test_a_recording_of_a_sweep_is_never_analysed_as_a_response(tmp_path, capsys, only_analyze):
+    # Issue "Real rooms" (item 6): analyze without --sweep on a take (its sidecar says so), on
+    # a sweep file, or on a bare recording whose content is a rising chirp refuses in one line
+    # and exits 2; it used to print plausible decay times and an STI, exit 0.
+    from measure.session import save_take
+    from measure.sweep import SweepSpec, make_sweep
+    from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
+
+    sweep = make_sweep(SweepSpec(fs=FS, f1_hz=20.0, f2_hz=20000.0, duration_s=3.0))
+    write_audio(tmp_path / "sweep.wav", sweep.program, FS)
+    write_json(tmp_path / "sweep.json", sweep.sidecar())
+    y = virtual_take(sweep.program, FS, room_ir(DEMO_ROOMS[1], FS, seed=1), latency_s=0.02,
+                     noise_dbfs=-70.0)
+    take = save_take(tmp_path / "caps", "office", "P1", y, FS, {"sweep_file": "sweep.wav"})
+    write_audio(tmp_path / "bare.wav", y, FS)  # the same recording without a sidecar
+    for path, says in ((take.wav, "its sidecar .* says it is a take"),
+                       (tmp_path / "sweep.wav", "this is a sweep file"),
+                       (tmp_path / "bare.wav", "strongest frequency rises")):
+        code, out, err = _run(capsys, ["analyze", str(path)])
+        assert code == 2 and out == ""
+        lines = err.strip().splitlines()
+        assert len(lines) == 1 and re.match(r"error: ", lines[0]), err
+        assert re.search(says, lines[0]), lines[0]
+        if path != tmp_path / "sweep.wav":
+            assert "this is a recording of a sweep" in lines[0]
+            assert "give --sweep SWEEP.wav" in lines[0]
+    # with --sweep the same take is analysed
+    code, _, err = _run(capsys, ["analyze", str(take.wav), "--sweep", str(tmp_path / "sweep.wav")])
+    assert code == 0, err
+
+
+def test_an_ir_file_carries_its_measurement_to_analyze(tmp_path, capsys, only_analyze):
+    # The IR's sidecar says which band the sweep excited: analyze of the IR file leaves out
+    # the octaves outside a 100 Hz-10 kHz sweep (63 Hz and 8 kHz: edges 44.7 Hz and 11.2 kHz,
+    # IEC 61260-1) with the reason, exactly as analyze of the capture does.
+    from measure.sweep import SweepSpec, make_sweep
+    from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
+
+    sweep = make_sweep(SweepSpec(fs=FS, f1_hz=100.0, f2_hz=10000.0, duration_s=3.0))
+    write_audio(tmp_path / "sweep.wav", sweep.program, FS)
+    write_json(tmp_path / "sweep.json", sweep.sidecar())
+    y = virtual_take(sweep.program, FS, room_ir(DEMO_ROOMS[1], FS, seed=1), latency_s=0.02,
+                     noise_dbfs=-70.0)
+    write_audio(tmp_path / "cap.wav", y, FS)
+    from measure.audio_io import write_ir
+    from measure.deconvolve import recover_ir
+
+    write_ir(tmp_path / "ir.wav", recover_ir(y, sweep), sweep=sweep, sources={})
+    docs = []
+    for argv in (["analyze", str(tmp_path / "ir.wav"), "--json"],
+                 ["analyze", str(tmp_path / "cap.wav"), "--sweep", str(tmp_path / "sweep.wav"),
+                  "--json"]):
+        code, out, err = _run(capsys, argv)
+        assert code == 0, err
+        docs.append({b["label"]: b for b in json.loads(out)["bands"]})
+    for doc in docs:
+        for label in ("63", "8k"):
+            assert all(doc[label][k] is None for k in ("edt_s", "t20_s", "c80_db"))
+            assert any("outside the sweep (100–10000 Hz)" in f for f in doc[label]["flags"])
+        assert doc["1k"]["t20_s"] is not None
+    assert docs[0]["1k"]["t20_s"] == pytest.approx(docs[1]["1k"]["t20_s"], rel=1e-3)

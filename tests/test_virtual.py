@@ -9,7 +9,16 @@ import pytest
 from scipy.signal import butter, sosfilt
 
 from measure.errors import ParameterError
-from measure.virtual import DEMO_ROOMS, OCTAVE_CENTERS_HZ, VirtualRoom, room_ir, virtual_take
+from measure.virtual import (
+    DEMO_ROOMS,
+    OCTAVE_CENTERS_HZ,
+    VirtualRoom,
+    background_noise,
+    impulsive_noise,
+    loudspeaker_ir,
+    room_ir,
+    virtual_take,
+)
 
 FS = 48000
 
@@ -85,3 +94,70 @@ def test_bad_rooms_are_refused():
     with pytest.raises(ParameterError, match="reflections"):
         room_ir(VirtualRoom("x", (1000.0,), (1.0,), direct_delay_s=0.0, drr_db=10.0,
                             reflections=((0.01, 0.9),)), FS)
+
+
+@pytest.mark.parametrize("kind, slope_db_per_octave", [("white", 0.0), ("pink", -3.0)])
+def test_background_noise_has_its_spectrum_and_level(kind, slope_db_per_octave):
+    # White: flat power density; pink: -3 dB per octave (power ∝ 1/f, the definition). The
+    # density is estimated with scipy.signal.welch (scipy 1.17) between 100 Hz and 10 kHz and
+    # its slope fitted in dB against octaves; 0.3 dB/octave covers the estimate's scatter
+    # (measured 0.05). The RMS is the level asked, exactly (it is scaled to it).
+    from scipy.signal import welch
+
+    z = background_noise(10 * FS, FS, level_dbfs=-40.0, kind=kind, seed=1)
+    assert 20 * np.log10(np.sqrt(np.mean(z ** 2))) == pytest.approx(-40.0, abs=1e-9)
+    f, p = welch(z, fs=FS, nperseg=8192)
+    m = (f >= 100) & (f <= 10000)
+    slope = np.polyfit(np.log2(f[m]), 10 * np.log10(p[m]), 1)[0]
+    assert slope == pytest.approx(slope_db_per_octave, abs=0.3)
+
+
+def test_rumble_is_low_frequency_noise():
+    # The rumble's power ∝ 1/(1 + (f/50)^4) over a floor 50 dB down (virtual.py): its density
+    # at 400 Hz is 10 lg(1 + 8^4) = 36 dB below the plateau at 20 Hz (derived; ±2 dB for
+    # Welch's scatter), and most of its power lies below 100 Hz.
+    from scipy.signal import welch
+
+    z = background_noise(10 * FS, FS, level_dbfs=-30.0, kind="rumble", seed=2)
+    f, p = welch(z, fs=FS, nperseg=16384)
+    at = lambda hz: 10 * np.log10(np.mean(p[(f > hz * 0.9) & (f < hz * 1.1)]))  # noqa: E731
+    assert at(20.0) - at(400.0) == pytest.approx(10 * np.log10(1 + 8.0 ** 4), abs=2.0)
+    assert np.sum(p[f < 100]) / np.sum(p) > 0.9
+
+
+def test_a_small_loudspeaker_is_scipys_butterworth_high_pass():
+    # loudspeaker_ir is the impulse response of scipy.signal.butter(order, fc, "highpass");
+    # its spectrum must equal the filter's (scipy.signal.sosfreqz) within 0.01 dB above
+    # 50 Hz (the 0.25 s response truncates the filter's decay by far less).
+    from scipy.signal import butter, sosfreqz
+
+    g = loudspeaker_ir(FS, highpass_hz=250.0, order=2)
+    f = np.array([50.0, 125.0, 250.0, 1000.0, 8000.0])
+    _, want = sosfreqz(butter(2, 250.0, "highpass", fs=FS, output="sos"), worN=f, fs=FS)
+    got = np.array([np.abs(np.sum(g * np.exp(-2j * np.pi * fk * np.arange(g.size) / FS)))
+                    for fk in f])
+    assert np.allclose(20 * np.log10(got), 20 * np.log10(np.abs(want)), atol=0.01)
+
+
+def test_impulsive_noise_has_its_peak_where_asked():
+    for kind in ("door", "cough"):
+        z = impulsive_noise(3 * FS, FS, at_s=1.0, level_dbfs=-20.0, kind=kind, seed=3)
+        assert 20 * np.log10(np.max(np.abs(z))) == pytest.approx(-20.0, abs=1e-9)
+        assert not np.any(z[:FS]) and np.any(z[FS:FS + 100])
+
+
+def test_distortion_does_not_fold_above_nyquist():
+    # A 15 kHz tone at 48 kHz through 3 % HD2: the second harmonic (30 kHz) is above Nyquist
+    # and must not appear folded at 48 - 30 = 18 kHz, as a recorder's anti-alias filter removes
+    # it (derived); the 5 kHz tone's HD2 at 10 kHz stays, at 3 % of the fundamental (the
+    # virtual loudspeaker's definition, within 0.1 %).
+    t = np.arange(FS) / FS
+    for f0, fold_hz in ((15000.0, 18000.0), (5000.0, None)):
+        x = 0.1 * np.sin(2 * np.pi * f0 * t)
+        y = virtual_take(x, FS, np.array([1.0]), hd2_percent=3.0)
+        spec = np.abs(np.fft.rfft(y * np.hanning(y.size)))
+        fund = spec[int(f0)]
+        if fold_hz is not None:
+            assert spec[int(fold_hz)] < 1e-4 * fund
+        else:
+            assert spec[int(2 * f0)] / fund == pytest.approx(0.03, abs=0.001)
