@@ -41,6 +41,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -1062,6 +1063,9 @@ def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[floa
         for lab, x in zip(labels, signals, strict=True):
             nf = lundeby(x, fs)
             tc = nf.truncation_index
+            if nf.continues_s is not None:  # misled, but the decay's end is visible
+                tc = min(tc + int(nf.continues_s * fs), n_body)
+                nf = dataclasses.replace(nf, ok=True)
             room = n_body - tc
             ok = (nf.ok and nf.noise_floor_found and tc < n_body
                   and room >= max(int(0.1 * n_body), int(0.05 * fs)))
