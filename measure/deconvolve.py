@@ -42,6 +42,7 @@ References
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -72,6 +73,7 @@ __all__ = [
     "response_length",
     "predicted_noise_power",
     "length_bands_hz",
+    "band_power_frames",
     "sweep_recording_evidence",
     "default_pre_s",
     "IR_FORMAT",
@@ -389,7 +391,7 @@ def deconvolve_rows(y: np.ndarray, sweep: Sweep, rows: Sequence[int], *, first: 
         rows.remove(first)
         rows.insert(0, first)
     n_fft = _fft_len(y.shape[1] + sweep.spec.n_sweep + 1)
-    inv = inverse_spectrum(sweep.spec, n_fft)
+    inv = inverse_spectrum(sweep.spec, n_fft, x=sweep.x)
     out = {}
     for r in rows:  # one row's spectrum at a time keeps the peak memory low
         Y = rfft(y[r], n_fft)
@@ -441,13 +443,13 @@ def locate_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
             f"{20 * math.log10(max(peak, 1e-300) / noise):.1f} dB above the noise, "
             f"{DETECTION_DB:g} dB needed); {advice}")
     # A recording of another sweep deconvolves to a chirp, whose peak can stand far above the
-    # noise of a quiet room; its octaves arrive at different times (:func:`_arrival_spread_s`)
-    spread = _arrival_spread_s(d, p, n_recorded, spec)
-    if spread is not None and spread > MAX_ARRIVAL_SPREAD_S:
+    # noise of a quiet room; its octaves arrive at different times (:func:`_octaves_meeting_peak`)
+    met = _octaves_meeting_peak(d, p, n_recorded, spec)
+    if met is not None and met[0] < 0.5 * met[1]:
         raise AudioFileError(
             "no sweep found in the recording (what it holds deconvolves to a chirp, not an "
-            f"impulse response: its octaves arrive {spread:.2f} s apart, as a recording of "
-            f"another sweep does); {advice}")
+            f"impulse response: only {met[0]} of its {met[1]} octaves arrive together, as in a "
+            f"recording of another sweep); {advice}")
     P = spec.n_period
     R = spec.repeats
     present: dict[int, int] = {0: p}
@@ -477,25 +479,28 @@ def locate_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
     return np.asarray(found, dtype=np.int64)
 
 
-#: The octaves of a response arrive together: their strongest 5 ms lie within this of each
-#: other. In a room the direct sound (or, with a weak one, the reverberation's first tens of
-#: milliseconds) is every octave's strongest moment, and even 300 ppm of uncorrected drift
-#: disperses the direct sound by under 2 ms (measurement.md §1.6); the octaves of a recording
-#: of another sweep deconvolved by this one arrive (L_b − L_a)·ln(f/f1) apart (the difference of
-#: the two sweeps' group delays, derived), seconds for sweeps of different lengths or ranges.
+#: The octaves of a response arrive together. At its strongest moment (the direct sound, or a
+#: reflection milliseconds after it) every octave the source excites carries energy within
+#: 20 dB of its own maximum (a small loudspeaker's weak lows peak in their reverberation, a few
+#: dB above their direct sound; a clipped take's distortion products, before it, come close to
+#: it); a recording of another sweep deconvolves to a chirp whose octaves arrive
+#: (L_b − L_a)·ln(f/f1) apart (the difference of the two sweeps' group delays, derived),
+#: seconds for sweeps of different lengths or ranges, so at its peak only the octaves that
+#: meet there do. Fewer than half of the octaves that stand out of their noise meeting the
+#: peak: a chirp (common practice for the bounds; measured on the tests' mismatched sweeps).
 #: A sweep within a few percent of this one's length passes (its response is then only
-#: dispersed; common practice for the bound).
-MAX_ARRIVAL_SPREAD_S = 0.25
-#: An octave counts for the arrival check when its strongest 5 ms stand this far above its
-#: median 5 ms (the noise): below, its peak is where the noise happened to be.
-ARRIVAL_PROMINENCE_DB = 15.0
+#: dispersed).
+ARRIVAL_WITHIN_DB = 20.0
+#: An octave counts for the arrival check when its strongest 20 ms frame stands this far above
+#: its median frame (the noise): below, its peak is where the noise happened to be.
+ARRIVAL_PROMINENCE_DB = 20.0
 
 
-def _arrival_spread_s(d: np.ndarray, p: int, n_recorded: int, spec: SweepSpec) -> float | None:
-    """Spread (s) of the octaves' arrival times within ±2 s of the peak ``p`` of ``d``, or None
-    when fewer than three octaves stand out of their noise there."""
-    from scipy.fft import irfft, rfft
-
+def _octaves_meeting_peak(d: np.ndarray, p: int, n_recorded: int, spec: SweepSpec
+                          ) -> tuple[int, int] | None:
+    """(octaves that meet the peak ``p`` of ``d``, octaves that stand out of their noise) within
+    ±2 s of it (octave power envelopes in 20 ms frames, :func:`band_power_frames`), or None
+    when fewer than three stand out."""
     fs = spec.fs
     # negative lags wrap to the end of d (n_recorded … d.size − 1): a mismatched sweep's
     # octaves may arrive there; the window never wraps onto itself
@@ -504,21 +509,16 @@ def _arrival_spread_s(d: np.ndarray, p: int, n_recorded: int, spec: SweepSpec) -
     bands = length_bands_hz(spec.f1_hz, spec.f2_hz, fs)
     if len(bands) < 3 or seg.size < int(0.1 * fs):
         return None
-    n_fft = _fft_len(seg.size)
-    S = rfft(seg, n_fft)
-    masks = _band_masks(bands, np.fft.rfftfreq(n_fft, 1.0 / fs))
-    block = int(0.005 * fs)
-    nb = seg.size // block
-    times = []
-    for m in masks:
-        x = irfft(S * m, n_fft)[:nb * block]
-        e = np.mean(x.reshape(nb, block) ** 2, axis=1)
-        k = int(np.argmax(e))
-        if e[k] > float(np.median(e)) * 10.0 ** (ARRIVAL_PROMINENCE_DB / 10.0):
-            times.append(k * block / fs)
-    if len(times) < 3:
-        return None
-    return max(times) - min(times)
+    rate, power = band_power_frames(seg, fs, bands)
+    j = int(round((p - lo) / fs * rate))
+    near = slice(max(j - 2, 0), j + 3)  # ±40 ms
+    standing = meeting = 0
+    for e in power:
+        top = float(e.max())
+        if top > float(np.median(e)) * 10.0 ** (ARRIVAL_PROMINENCE_DB / 10.0):
+            standing += 1
+            meeting += float(e[near].max()) >= top * 10.0 ** (-ARRIVAL_WITHIN_DB / 10.0)
+    return (meeting, standing) if standing >= 3 else None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -750,6 +750,12 @@ def _search_radius(sweep: Sweep, fs: int) -> int:
 
 
 def _dispersion_correction(n_fft: int, sweep: Sweep, eps: float) -> np.ndarray:
+    """See :func:`_dispersion_factor`; cached (the same window length recurs in a recovery)."""
+    return _dispersion_factor(n_fft, sweep.spec, eps)
+
+
+@functools.lru_cache(maxsize=8)
+def _dispersion_factor(n_fft: int, spec: SweepSpec, eps: float) -> np.ndarray:
     """rfft-domain factor X/X_s that turns a nominal deconvolution into a drift-free one.
 
     A recorder running ε fast records the sweep with rate constant L(1+ε) samples and start
@@ -759,14 +765,15 @@ def _dispersion_correction(n_fft: int, sweep: Sweep, eps: float) -> np.ndarray:
     X_s/X = √(1+ε)·exp(jΔψ), Δψ(ν) = 2πLν[ε − ε·ln(ν/ν1) − (1+ε)·ln(1+ε)] (derived), whose
     group delay is the ε·L·(ln(ν/ν1)+1) of measurement.md §1.6. This returns its inverse.
     """
-    spec = sweep.spec
     L = spec.rate_constant_s * spec.fs
     nu1 = spec.f1_hz / spec.fs
     nu = np.arange(n_fft // 2 + 1) / n_fft
     with np.errstate(divide="ignore"):
         lnr = np.log(np.maximum(nu, 1e-12) / nu1)
     dpsi = 2 * np.pi * L * nu * (eps - eps * lnr - (1 + eps) * math.log1p(eps))
-    return np.exp(-1j * dpsi) / math.sqrt(1.0 + eps)
+    out = np.exp(-1j * dpsi) / math.sqrt(1.0 + eps)
+    out.setflags(write=False)
+    return out
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -799,7 +806,9 @@ def aligned_spectra(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Swe
     for o in origins:
         base = int(math.floor(o))
         frac = o - base
-        seg = row.take(np.arange(base - margin, base - margin + n_seg), mode="wrap")
+        a = base - margin
+        seg = (row[a:a + n_seg] if 0 <= a and a + n_seg <= row.size
+               else row.take(np.arange(a, a + n_seg), mode="wrap"))
         S = rfft(seg, n_fft)
         if frac:
             S *= np.exp(2j * np.pi * k * frac / n_fft)
@@ -901,7 +910,7 @@ def _band_masks(centres_hz: Sequence[float], f_hz: np.ndarray) -> np.ndarray:
 
 
 def _finish(acc: np.ndarray, sp: _Spectra, sweep: Sweep, eps: float, n_out: int, *,
-            unstretch: bool) -> np.ndarray:
+            unstretch: bool, dispersed: bool = False) -> np.ndarray:
     """An averaged window spectrum → the response on the player's clock (or the recorder's).
 
     The drift's dispersion is undone (:func:`_dispersion_correction`) and, with ``unstretch``,
@@ -912,7 +921,7 @@ def _finish(acc: np.ndarray, sp: _Spectra, sweep: Sweep, eps: float, n_out: int,
     from scipy.fft import irfft
 
     n_fft, margin = sp.n_fft, sp.margin
-    if eps:
+    if eps and not dispersed:
         acc = acc * _dispersion_correction(n_fft, sweep, eps)
     if not unstretch:
         return irfft(acc, n_fft)[margin:margin + n_out]
@@ -1001,7 +1010,7 @@ class Length:
         Samples to keep (from the window's start).
     noise_power : tuple of float
         Per channel: mean power of the broadband noise after the decay (of the last tenth of
-        the response when the decay did not reach it).
+        the response when the decay did not reach it), in what the stage was given.
     noise_reached : tuple of bool
     unreached : tuple of tuple of str
         Per channel: labels of the bands whose decay did not reach the noise.
@@ -1027,42 +1036,75 @@ def _band_label(fc: float) -> str:
     return f"{nominal / 1000:g}k" if nominal >= 1000 else f"{nominal:g}"
 
 
+def band_power_frames(x: np.ndarray, fs: int, centres_hz: Sequence[float]
+                      ) -> tuple[int, np.ndarray]:
+    """The power of ``x`` in each octave (edges fc/√2 … fc·√2), frame by frame.
+
+    Hann frames of about 40 ms (a power of two: 2048 samples at 44.1/48 kHz, enough bins for the
+    63 Hz octave) advance by the hop of a frame rate that divides ``fs`` (50 Hz, else 25, 20,
+    ...): 20 ms, finer than the decisions made on them need (the length keeps twice the
+    crossing time; the arrival check judges 0.25 s); frame j is centred on sample j·hop. A band's power is (2/(N·Σw²))·Σ|X_k|² over its
+    bins, the mean square of its part of ``x`` (Parseval). Computed in blocks of frames, so
+    the memory stays at a few frames' worth.
+
+    Returns
+    -------
+    (rate_hz, power)
+        The frame rate (an integer number of frames per second) and an array
+        (len(centres_hz), frames).
+    """
+    from scipy.fft import rfft
+
+    rate = next((r for r in (50, 25, 20, 10, 5, 4, 2, 1) if fs % r == 0), 1)
+    hop = fs // rate
+    n_w = 1 << int(math.ceil(math.log2(max(0.04 * fs, 2 * hop, 16))))
+    w = np.hanning(n_w)
+    scale = 2.0 / (n_w * float(np.sum(w * w)))
+    xp = np.pad(np.asarray(x, dtype=np.float64), (n_w // 2, n_w // 2))
+    n_frames = max((xp.size - n_w) // hop + 1, 0)
+    f = np.fft.rfftfreq(n_w, 1.0 / fs)
+    sel = [(f >= fc / math.sqrt(2.0)) & (f < fc * math.sqrt(2.0)) for fc in centres_hz]
+    out = np.zeros((len(centres_hz), n_frames))
+    for j0 in range(0, n_frames, 128):
+        j = np.arange(j0, min(j0 + 128, n_frames))
+        frames = xp[j[:, None] * hop + np.arange(n_w)[None, :]] * w
+        p = np.abs(rfft(frames, axis=1)) ** 2
+        for b, m in enumerate(sel):
+            out[b, j] = scale * p[:, m].sum(axis=1)
+    return rate, out
+
+
 def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[float]) -> Length:
     """Where each band's decay meets the noise, and how much of the window to keep (stage 5).
 
-    Each row of ``h`` (direct sound at ``pre``) is split into the octave bands ``bands_hz``
-    (complementary masks, :func:`measure.bands.complementary_masks`) and analysed broadband;
+    Each row of ``h`` (direct sound at ``pre``) is analysed broadband and in the octave bands
+    ``bands_hz`` (their power envelopes in 20 ms frames, :func:`band_power_frames`):
     in each, Lundeby's method (:func:`measure.decay.lundeby`) finds the crossing of the decay
     with the noise. The response is kept to the latest crossing plus as much noise again (at
     least :data:`NOISE_KEEP_MIN_S`), within the window. A band whose decay is still falling at
     the end of the window, or crosses the noise with less than a tenth of the window left for
     the noise, has not reached it: the whole window is kept.
     """
-    from scipy.fft import irfft, rfft
-
-    from measure.bands import complementary_masks
     from measure.decay import lundeby
 
     n = h.shape[1]
     n_body = n - pre
-    n_fft = _fft_len(n)
-    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
-    masks = (complementary_masks(list(bands_hz), f, transition_octaves=1.0 / 3.0)
-             if bands_hz else np.zeros((0, f.size)))
     labels = [_band_label(fc) for fc in bands_hz] + ["broadband"]
     latest = 0
     noise_p, reached_all, unreached_all, cross_all, fits_all = [], [], [], [], []
     for row in h:
-        H = rfft(row, n_fft)
-        signals = [irfft(H * m, n_fft)[pre:n] for m in masks] + [row[pre:]]
-        del H
+        envelopes: list[tuple[np.ndarray, int, int]] = []  # (signal, its rate, samples/unit)
+        if bands_hz:
+            rate, power = band_power_frames(row[pre:], fs, bands_hz)
+            envelopes += [(np.sqrt(p), rate, fs // rate) for p in power]
+        envelopes.append((row[pre:], fs, 1))
         unreached: list[str] = []
         fits: dict[str, tuple[float, float]] = {}
         row_latest = 0
         broadband_noise = None
-        for lab, x in zip(labels, signals, strict=True):
-            nf = lundeby(x, fs)
-            tc = nf.truncation_index
+        for lab, (x, rate, step) in zip(labels, envelopes, strict=True):
+            nf = lundeby(x, rate)
+            tc = nf.truncation_index * step  # in samples of h
             if nf.continues_s is not None:  # misled, but the decay's end is visible
                 tc = min(tc + int(nf.continues_s * fs), n_body)
                 nf = dataclasses.replace(nf, ok=True)
@@ -1076,7 +1118,7 @@ def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[floa
             elif nf.late_fit_db is not None or not nf.ok:
                 unreached.append(lab)
                 if nf.late_fit_db is not None:
-                    a_db, b_db = nf.late_fit_db  # per-sample energy, absolute
+                    a_db, b_db = nf.late_fit_db  # power per sample, absolute
                     fits[lab] = (a_db + b_db * n_body / fs, b_db)
         if broadband_noise is None:
             tail = row[-max(n // 10, 1):]
@@ -1180,26 +1222,27 @@ def _gap_needed_s(length: Length, leadin: Sequence[np.ndarray | None], sweep: Sw
 # ---------------------------------------------------------------------------------------------
 # Harmonic distortion, judged against the noise in its own window
 
-def _energy_spectrum(x: np.ndarray, n_seg: int) -> np.ndarray:
-    """Mean |rfft|² over pieces of ``x``, scaled to pieces of ``n_seg`` samples (bins of an
-    ``n_seg``-point rfft): for stationary noise E|X_k|² grows with the piece's length."""
-    m = min(n_seg, x.size)
+def _noise_psd(x: np.ndarray, n_seg: int) -> tuple[np.ndarray, np.ndarray]:
+    """(normalised frequencies, per-sample density S) of the noise ``x`` from the mean |rfft|²
+    of up to 16 pieces of ``n_seg`` samples (fewer when ``x`` is shorter): for stationary noise
+    a piece of n samples has E|X_k|² = n·S(f_k), so one estimate serves every window length."""
+    m = max(min(n_seg, x.size), 1)
     k = min(max(x.size // m, 1), 16)
     pieces = x[x.size - k * m:].reshape(k, m)
-    e = np.mean(np.abs(np.fft.rfft(pieces, axis=1)) ** 2, axis=0) * (n_seg / m)
-    return np.interp(np.fft.rfftfreq(n_seg), np.fft.rfftfreq(m), e)
+    return np.fft.rfftfreq(m), np.mean(np.abs(np.fft.rfft(pieces, axis=1)) ** 2, axis=0) / m
 
 
 def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *, pre: int,
-                    pre_h: int, post: int, noise: np.ndarray | None) -> HarmonicDistortion:
+                    pre_h: int, post: int,
+                    noise: tuple[np.ndarray, np.ndarray] | None) -> HarmonicDistortion:
     """Energy of harmonic ``order`` at N·f over the fundamental's at f, over the excited band.
 
     ``h1`` and ``hn`` have their direct sounds at index ``pre``; ``hn`` holds data from
     ``pre − pre_h`` on. Both are compared up to ``post`` samples (at most 0.5 s) after their
     direct sounds, so a room's reverberation weighs equally in both; ``h1`` keeps all its time
-    before the direct sound, where its band limit at f1 rings. ``noise`` (a stretch of the
-    response that holds its noise) gives the energy the noise alone puts in a window as long
-    as the harmonic's: the harmonic counts only when its window holds at least twice that
+    before the direct sound, where its band limit at f1 rings. ``noise`` (the density of the
+    response's noise, :func:`_noise_psd`) gives the energy the noise alone puts in a window as
+    long as the harmonic's: the harmonic counts only when its window holds at least twice that
     (3 dB above), and then with the noise's share subtracted.
     """
     spec = sweep.spec
@@ -1219,8 +1262,9 @@ def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *,
     p1 = float(np.sum(np.interp(grid, f1_grid, H1))) + 1e-300
     pn = float(np.sum(np.interp(order * grid, f, HN)))
     pz = 0.0
-    if noise is not None and noise.size >= 16:
-        pz = float(np.sum(np.interp(order * grid, f, _energy_spectrum(noise, n_h))))
+    if noise is not None:
+        f_n, psd = noise
+        pz = n_h * float(np.sum(np.interp(order * grid / fs, f_n, psd)))
     if pz > 0 and not pn > 2.0 * pz:
         return HarmonicDistortion(order, adv, None, None, False, 100.0 * math.sqrt(pz / p1))
     ratio = max(pn - pz, 0.0) / p1
@@ -1413,25 +1457,31 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     # Drift below this leaves every sample of the window within 0.02 samples of its place.
     unstretch = abs(eps) * n_len >= 0.02
 
-    # 4: read back each channel's windows, leave out disturbed repeats, average
+    # 5 (decided first): where each band's decay meets the noise. Its 20 ms frames need no
+    # sub-sample alignment nor drift correction (the drift disperses by milliseconds), so it
+    # reads the repeats straight from the nominal deconvolution, integer-aligned (their
+    # sample-wise median from three repeats on, so that a disturbed one cannot stretch it),
+    # and the precise read-back below then processes only what is kept.
     bands = length_bands_hz(spec.f1_hz, spec.f2_hz, fs)
-    spectra = [aligned_spectra(d[c], win.origins, n_len, sweep, eps) for c in channels]
+    n_rec_len = int(math.ceil(n_len * stretch))
+
+    def rough(row: np.ndarray) -> np.ndarray:
+        rows = [row.take(np.arange(int(round(o)), int(round(o)) + n_rec_len), mode="wrap")
+                for o in win.origins]
+        return np.median(rows, axis=0) if len(rows) >= 3 else np.mean(rows, axis=0)
+
+    length = response_length(np.array([rough(d[c]) for c in channels]), fs, pre,
+                             bands_hz=bands)
+    n_out = min(n_len, int(length.end / stretch) + 1)
+
+    # 4: read back each channel's kept part, leave out disturbed repeats, average
+    spectra = [aligned_spectra(d[c], win.origins, n_out, sweep, eps) for c in channels]
     keep, left_out = select_repeats(spectra, fs, pre=pre, bands_hz=bands)
     for k, why in left_out:
         warnings.append(f"sweep {k} of {starts.size} was left out of the average: {why}")
-    accs = [_mean_of(sp, keep) for sp in spectra]
-
-    # 5: where the decay meets the noise (on the recorder's clock), then the final length
-    rec = np.array([_finish(a, sp, sweep, eps, n_len, unstretch=False)
-                    for a, sp in zip(accs, spectra, strict=True)])
-    length = response_length(rec, fs, pre, bands_hz=bands)
-    n_out = min(n_len, int(length.end / stretch) + 1) if unstretch else length.end
-    if unstretch:
-        h = np.array([_finish(a, sp, sweep, eps, n_out, unstretch=True)
-                      for a, sp in zip(accs, spectra, strict=True)])
-    else:
-        h = rec[:, :n_out].copy()
-    del spectra, accs, rec
+    h = np.array([_finish(_mean_of(sp, keep), sp, sweep, eps, n_out, unstretch=unstretch)
+                  for sp in spectra])
+    del spectra
 
     # each channel's own direct sound (it may be far from the timing channel's); harmonics
     origins = win.origins[keep]
@@ -1470,19 +1520,25 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     harm = (np.asarray(harm_rows) if n_harmonics else np.zeros((len(channels), 0, n_out)))
 
     # figures: latency, noise, peak-to-noise, harmonic levels
+    from measure.decay import lundeby
+
     latency, pnr, noise_dbfs, harmonics = [], [], [], []
     ref_arrival = (tm.fine[0] / stretch - spec.n_lead) / fs
     for i in range(len(channels)):
         arrival = (arrivals[i] / stretch - spec.n_lead) / fs
         latency.append(arrival - ref_arrival if reference_channel is not None else arrival)
-        noise_pow = length.noise_power[i]
+        # the noise of the averaged response itself (the length stage saw a rougher one)
+        nf = lundeby(h[i, pre:], fs)
+        noise_pow = (nf.noise_power if nf.ok and nf.noise_floor_found
+                     else float(np.mean(h[i, -max(n_out // 10, 1):] ** 2))) + 1e-300
         peak_pow = float(np.max(h[i] ** 2))
         pnr.append(10 * math.log10(max(peak_pow, 1e-300) / noise_pow))
         noise_dbfs.append(10 * math.log10(noise_pow))
-        tail = h[i, pre + (n_out - pre) // 2:] if n_out - pre >= 32 else None
+        tail = h[i, pre + (n_out - pre) // 2:]
+        psd = _noise_psd(tail, max(keep_h, default=16)) if tail.size >= 16 else None
         harmonics.append(tuple(
             _harmonic_level(h[i], harm[i, j], j + 2, sweep, pre=pre, pre_h=pre_h,
-                            post=keep_h[j] - pre_h, noise=tail)
+                            post=keep_h[j] - pre_h, noise=psd)
             for j in range(harm.shape[1])))
     for i, val in enumerate(pnr):
         if val < 30.0:

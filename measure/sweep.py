@@ -352,7 +352,8 @@ def _edge_weight(f_hz: np.ndarray, f1_hz: float, f2_hz: float, nyquist_hz: float
     return w
 
 
-def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np.ndarray:
+def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0,
+                     x: np.ndarray | None = None) -> np.ndarray:
     """rfft-domain inverse of one sweep: X*/(|X|² + ε(f)), for deconvolution by multiplication.
 
     The design (where ε is small and where it follows the sweep's edges) is in the module notes.
@@ -365,6 +366,9 @@ def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np
         convolution does not wrap.
     stretch : float
         Clock ratio of the recorder to the player (1 + drift), see :func:`sweep_signal`.
+    x : ndarray, optional
+        The sweep's samples when the caller has them (:attr:`Sweep.x`, ``stretch`` 1): they
+        are not computed again.
 
     Returns
     -------
@@ -386,11 +390,11 @@ def inverse_spectrum(spec: SweepSpec, n_fft: int, *, stretch: float = 1.0) -> np
     """
     from scipy.fft import rfft
 
-    x = sweep_signal(spec, stretch=stretch)
+    if x is None or stretch != 1.0:
+        x = sweep_signal(spec, stretch=stretch)
     if n_fft < x.size:
         raise ParameterError(f"n_fft={n_fft} is shorter than the sweep ({x.size} samples)")
     X = rfft(x, n_fft)
-    del x
     power = X.real * X.real
     power += X.imag * X.imag
     # ε: β·max|X|² everywhere, plus the nominal edge power (fs²·A²·L/(4 f_edge), module notes)
