@@ -216,19 +216,26 @@ def test_sti_with_speech_and_noise_levels(tmp_path, capsys, only_analyze):
     assert json.loads(out0)["details"]["sti"]["masking_and_threshold"] is False
 
 
+def _sweep_and_take(folder, f1_hz: float, f2_hz: float):
+    """A 3 s sweep file (with its sidecar) in ``folder`` and a take of it in the office."""
+    from measure.sweep import SweepSpec, make_sweep
+    from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
+
+    sweep = make_sweep(SweepSpec(fs=FS, f1_hz=f1_hz, f2_hz=f2_hz, duration_s=3.0))
+    write_audio(folder / "sweep.wav", sweep.program, FS)
+    write_json(folder / "sweep.json", sweep.sidecar())
+    y = virtual_take(sweep.program, FS, room_ir(DEMO_ROOMS[1], FS, seed=1), latency_s=0.02,
+                     noise_dbfs=-70.0)
+    return sweep, y
+
+
 def test_a_recording_of_a_sweep_is_never_analysed_as_a_response(tmp_path, capsys, only_analyze):
     # Issue "Real rooms" (item 6): analyze without --sweep on a take (its sidecar says so), on
     # a sweep file, or on a bare recording whose content is a rising chirp refuses in one line
     # and exits 2; it used to print plausible decay times and an STI, exit 0.
     from measure.session import save_take
-    from measure.sweep import SweepSpec, make_sweep
-    from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
 
-    sweep = make_sweep(SweepSpec(fs=FS, f1_hz=20.0, f2_hz=20000.0, duration_s=3.0))
-    write_audio(tmp_path / "sweep.wav", sweep.program, FS)
-    write_json(tmp_path / "sweep.json", sweep.sidecar())
-    y = virtual_take(sweep.program, FS, room_ir(DEMO_ROOMS[1], FS, seed=1), latency_s=0.02,
-                     noise_dbfs=-70.0)
+    sweep, y = _sweep_and_take(tmp_path, 20.0, 20000.0)
     take = save_take(tmp_path / "caps", "office", "P1", y, FS, {"sweep_file": "sweep.wav"})
     write_audio(tmp_path / "bare.wav", y, FS)  # the same recording without a sidecar
     for path, says in ((take.wav, "its sidecar .* says it is a take"),
@@ -251,14 +258,7 @@ def test_an_ir_file_carries_its_measurement_to_analyze(tmp_path, capsys, only_an
     # The IR's sidecar says which band the sweep excited: analyze of the IR file leaves out
     # the octaves outside a 100 Hz-10 kHz sweep (63 Hz and 8 kHz: edges 44.7 Hz and 11.2 kHz,
     # IEC 61260-1) with the reason, exactly as analyze of the capture does.
-    from measure.sweep import SweepSpec, make_sweep
-    from measure.virtual import DEMO_ROOMS, room_ir, virtual_take
-
-    sweep = make_sweep(SweepSpec(fs=FS, f1_hz=100.0, f2_hz=10000.0, duration_s=3.0))
-    write_audio(tmp_path / "sweep.wav", sweep.program, FS)
-    write_json(tmp_path / "sweep.json", sweep.sidecar())
-    y = virtual_take(sweep.program, FS, room_ir(DEMO_ROOMS[1], FS, seed=1), latency_s=0.02,
-                     noise_dbfs=-70.0)
+    sweep, y = _sweep_and_take(tmp_path, 100.0, 10000.0)
     write_audio(tmp_path / "cap.wav", y, FS)
     from measure.audio_io import write_ir
     from measure.deconvolve import recover_ir
