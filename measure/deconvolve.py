@@ -1,4 +1,4 @@
-"""Recording → impulse response: locate, drift, window, read back and average, noise and length.
+"""Recording → impulse response: locate, drift, window, noise and length, read back and average.
 
 :func:`recover_ir` runs the stages in this order; each is a function of its own:
 
@@ -16,18 +16,21 @@
    §1.6). The result also fixes each repeat's direct sound to a fraction of a sample.
 3. **Window** (:func:`plan_window`): from a little before the direct sound to the next sweep's
    earliest harmonic response, or to the end of the recording.
-4. **Read back and average** (:func:`aligned_spectra`, :func:`select_repeats`,
-   :func:`read_back`): each repeat's window is advanced by its fractional start with a linear
-   phase; repeats that an impulsive disturbance (a door, a cough) made differ from the others
-   are found band by band and left out; the rest are averaged as spectra; the drift's dispersion
-   is undone in closed form (:func:`_dispersion_correction`) and the stretch of the room
-   response by reading the window's spectrum back on a scaled frequency grid (a chirp-z
-   transform). Only the windows are processed, so the whole recording is transformed once.
-5. **Noise and length** (:func:`response_length`): in every octave band inside the sweep and
-   broadband, the decay's crossing with the noise is found by the method of Lundeby et al.
-   (:func:`measure.decay.lundeby`); the response is kept until the latest crossing and as much
-   noise after it, never cut before. When the window ends before a band's decay reaches the
-   noise, the response keeps the whole window and says so, with the gap the room would need.
+4. **Noise and length** (:func:`response_length`), decided on the repeats read straight from
+   the window (integer-aligned; 20 ms frames need no more): in every octave band inside the
+   sweep and broadband, the decay's crossing with the noise is found by the method of Lundeby
+   et al. (:func:`measure.decay.lundeby`); the response is kept until the latest crossing and
+   as much noise after it, never cut before. When the window ends before a band's decay
+   reaches the noise, the response keeps the whole window and says so, with the gap the room
+   would need.
+5. **Read back and average** (:func:`aligned_spectra`, :func:`select_repeats`,
+   :func:`read_back`), for the part kept: each repeat's window is advanced by its fractional
+   start with a linear phase; repeats that an impulsive disturbance (a door, a cough) made
+   differ from the others are found band by band and left out; the rest are averaged as
+   spectra; the drift's dispersion is undone in closed form (:func:`_dispersion_correction`)
+   and the stretch of the room response by reading the window's spectrum back on a scaled
+   frequency grid (a chirp-z transform). Only the windows are processed, so the whole
+   recording is transformed once.
 
 References
 ----------
@@ -662,7 +665,7 @@ def estimate_timing(d: np.ndarray, starts: np.ndarray, sweep: Sweep, *,
     radius = _search_radius(sweep, fs)
     lo = int(starts[0]) - 2 * radius
     for attempt in range(3):  # w always belongs to the final eps
-        w = _read_average(d, np.array([float(lo)]), 4 * radius, sweep, eps, unstretch=False)
+        w = read_back(d, np.array([float(lo)]), 4 * radius, sweep, eps, unstretch=False)
         p_w = _relocate(np.abs(w), 2 * radius, sweep, fs)
         if not (correct_drift and starts.size == 1):
             break
@@ -946,7 +949,7 @@ def read_back(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep, ep
               keep: Sequence[int] | None = None, unstretch: bool = True) -> np.ndarray:
     """The average of the windows of ``row`` at ``origins`` (those in ``keep``), drift removed.
 
-    This is stage 4 for one row with the repeats already chosen; :func:`recover_ir` uses it
+    This is stage 5 for one row with the repeats already chosen; :func:`recover_ir` uses it
     through its parts. Given the ``origins`` and ``drift_ppm`` of an :class:`ImpulseResponse`,
     it processes any other deconvolved signal (e.g. the noise part of a virtual take) exactly as
     that response was processed.
@@ -954,11 +957,6 @@ def read_back(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep, ep
     sp = aligned_spectra(row, origins, n_out, sweep, eps)
     keep = range(len(origins)) if keep is None else keep
     return _finish(_mean_of(sp, keep), sp, sweep, eps, n_out, unstretch=unstretch)
-
-
-def _read_average(row: np.ndarray, origins: np.ndarray, n_out: int, sweep: Sweep, eps: float,
-                  *, unstretch: bool) -> np.ndarray:
-    return read_back(row, origins, n_out, sweep, eps, unstretch=unstretch)
 
 
 def _chirp_sum(c: np.ndarray, m: int, alpha: float) -> np.ndarray:
@@ -1002,15 +1000,12 @@ def length_bands_hz(f1_hz: float, f2_hz: float, fs: int) -> tuple[float, ...]:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class Length:
-    """Result of the noise-and-length stage (5) for every channel.
+    """Result of the noise-and-length stage (4) for every channel.
 
     Attributes
     ----------
     end : int
         Samples to keep (from the window's start).
-    noise_power : tuple of float
-        Per channel: mean power of the broadband noise after the decay (of the last tenth of
-        the response when the decay did not reach it), in what the stage was given.
     noise_reached : tuple of bool
     unreached : tuple of tuple of str
         Per channel: labels of the bands whose decay did not reach the noise.
@@ -1024,7 +1019,6 @@ class Length:
     """
 
     end: int
-    noise_power: tuple[float, ...]
     noise_reached: tuple[bool, ...]
     unreached: tuple[tuple[str, ...], ...]
     crossing_s: tuple[float | None, ...]
@@ -1075,7 +1069,7 @@ def band_power_frames(x: np.ndarray, fs: int, centres_hz: Sequence[float]
 
 
 def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[float]) -> Length:
-    """Where each band's decay meets the noise, and how much of the window to keep (stage 5).
+    """Where each band's decay meets the noise, and how much of the window to keep (stage 4).
 
     Each row of ``h`` (direct sound at ``pre``) is analysed broadband and in the octave bands
     ``bands_hz`` (their power envelopes in 20 ms frames, :func:`band_power_frames`):
@@ -1091,7 +1085,7 @@ def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[floa
     n_body = n - pre
     labels = [_band_label(fc) for fc in bands_hz] + ["broadband"]
     latest = 0
-    noise_p, reached_all, unreached_all, cross_all, fits_all = [], [], [], [], []
+    reached_all, unreached_all, cross_all, fits_all = [], [], [], []
     for row in h:
         envelopes: list[tuple[np.ndarray, int, int]] = []  # (signal, its rate, samples/unit)
         if bands_hz:
@@ -1101,7 +1095,6 @@ def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[floa
         unreached: list[str] = []
         fits: dict[str, tuple[float, float]] = {}
         row_latest = 0
-        broadband_noise = None
         for lab, (x, rate, step) in zip(labels, envelopes, strict=True):
             nf = lundeby(x, rate)
             tc = nf.truncation_index * step  # in samples of h
@@ -1113,17 +1106,11 @@ def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[floa
                   and room >= max(int(0.1 * n_body), int(0.05 * fs)))
             if ok:
                 row_latest = max(row_latest, tc)
-                if lab == "broadband":
-                    broadband_noise = nf.noise_power
             elif nf.late_fit_db is not None or not nf.ok:
                 unreached.append(lab)
                 if nf.late_fit_db is not None:
                     a_db, b_db = nf.late_fit_db  # power per sample, absolute
                     fits[lab] = (a_db + b_db * n_body / fs, b_db)
-        if broadband_noise is None:
-            tail = row[-max(n // 10, 1):]
-            broadband_noise = float(np.mean(tail * tail))
-        noise_p.append(float(broadband_noise) + 1e-300)
         reached_all.append(not unreached)
         unreached_all.append(tuple(unreached))
         cross_all.append(None if unreached else row_latest / fs)
@@ -1134,7 +1121,7 @@ def response_length(h: np.ndarray, fs: int, pre: int, *, bands_hz: Sequence[floa
             keep = max(2 * row_latest, row_latest + int(NOISE_KEEP_MIN_S * fs))
             latest = max(latest, keep)
     end = min(n, pre + latest)
-    return Length(end=int(end), noise_power=tuple(noise_p), noise_reached=tuple(reached_all),
+    return Length(end=int(end), noise_reached=tuple(reached_all),
                   unreached=tuple(unreached_all), crossing_s=tuple(cross_all),
                   late_fits=tuple(fits_all))
 
@@ -1457,7 +1444,7 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     # Drift below this leaves every sample of the window within 0.02 samples of its place.
     unstretch = abs(eps) * n_len >= 0.02
 
-    # 5 (decided first): where each band's decay meets the noise. Its 20 ms frames need no
+    # 4: where each band's decay meets the noise. Its 20 ms frames need no
     # sub-sample alignment nor drift correction (the drift disperses by milliseconds), so it
     # reads the repeats straight from the nominal deconvolution, integer-aligned (their
     # sample-wise median from three repeats on, so that a disturbed one cannot stretch it),
@@ -1474,7 +1461,7 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
                              bands_hz=bands)
     n_out = min(n_len, int(length.end / stretch) + 1)
 
-    # 4: read back each channel's kept part, leave out disturbed repeats, average
+    # 5: read back each channel's kept part, leave out disturbed repeats, average
     spectra = [aligned_spectra(d[c], win.origins, n_out, sweep, eps) for c in channels]
     keep, left_out = select_repeats(spectra, fs, pre=pre, bands_hz=bands)
     for k, why in left_out:
@@ -1497,7 +1484,7 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
             a = max(int(starts[0]) - reach, 0)
             p_nom = a + int(np.argmax(np.abs(row[a:int(starts[0]) + reach])))
             lo_c = p_nom - 2 * radius
-            wc = _read_average(row, np.array([float(lo_c)]), 4 * radius, sweep, eps,
+            wc = read_back(row, np.array([float(lo_c)]), 4 * radius, sweep, eps,
                                unstretch=False)
             pc = _relocate(np.abs(wc), 2 * radius, sweep, fs)
         arrivals.append(lo_c + _fine_position(wc, pc))
