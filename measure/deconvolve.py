@@ -743,7 +743,7 @@ def plan_window(timing: Timing, sweep: Sweep, n_recorded: int, *, pre: int, n_ha
 
 
 # ---------------------------------------------------------------------------------------------
-# 4. Read back and average
+# 5. Read back and average
 
 def _search_radius(sweep: Sweep, fs: int) -> int:
     """How far drift can move the direct sound in a response deconvolved without correction."""
@@ -985,7 +985,7 @@ def _chirp_sum(c: np.ndarray, m: int, alpha: float) -> np.ndarray:
 
 
 # ---------------------------------------------------------------------------------------------
-# 5. Noise and length
+# 4. Noise and length (decided before the read-back, see recover_ir)
 
 def length_bands_hz(f1_hz: float, f2_hz: float, fs: int) -> tuple[float, ...]:
     """Exact mid-band frequencies of the octaves in :data:`LENGTH_OCTAVES_HZ` that lie inside
