@@ -123,11 +123,12 @@ NOISE_KEEP_MIN_S = 0.5
 #: derived), so 15 dB is no false alarm; a disturbance that stays below it changes the average
 #: by less than the noise does (common practice for the margin).
 DISTURBANCE_DB = 15.0
-#: ... and a residual within 25 dB of the block's own signal is not a disturbance: it is the
-#: time variance of the room or a sub-sample misalignment of the direct sound (measured on
-#: drift-corrected virtual takes: the residual of a clean repeat stays 35 dB or more below
-#: the direct sound); a disturbance that weak moves a figure by less than 0.02 dB (derived:
-#: 10 lg(1 + 10^(-25/10)/3) for three repeats).
+#: ... and a residual less than 15 dB below the block's own signal (10 dB over this bound) is
+#: needed: a clean repeat differs from the others by the time variance of the room and by a
+#: sub-sample misalignment of its direct sound, which grows with frequency (measured on a
+#: drift-corrected take at -120 ppm, 3 repeats: 19 dB below the direct sound in the 8 kHz
+#: octave, 43 dB at 1 kHz; so the margin is 4 dB in the top octave); a disturbance that weak
+#: moves a figure by less than 0.2 dB (derived: 10 lg(1 + 10^(-15/10)) for one repeat).
 DISTURBANCE_SIGNAL_DB = -25.0
 #: Octave bands the length stage follows (nominal centres; those inside the sweep are used).
 LENGTH_OCTAVES_HZ: tuple[float, ...] = (63.0, 125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0,

@@ -33,7 +33,7 @@ gain stood about 50 dB above its in-band gain (measured: 52 dB at 20.7 kHz for a
 sweep at 48 kHz), and white background noise there filled every octave band of the response
 (a 50 Hz–16 kHz sweep lost 12 dB of range in the 8 kHz octave; 100 Hz–10 kHz with 0.2 s fades,
 20 dB). With this design the deconvolved noise of every octave band inside the sweep equals an
-ideal in-band inverse (measured within 0.05 dB for white and pink noise, 44.1–96 kHz, sweeps
+ideal in-band inverse (measured within 0.06 dB for white, pink and rumble noise, 44.1–96 kHz, sweeps
 ending at 10, 16, 20 kHz or Nyquist, fades of 0–0.5 s; tests/test_noise_floor.py).
 
 The low transition is wide (half an octave) so that the band limit at f1 rings for about two
