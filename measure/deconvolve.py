@@ -1268,7 +1268,7 @@ def _harmonic_level(h1: np.ndarray, hn: np.ndarray, order: int, sweep: Sweep, *,
 #: strongest frequency rises steadily; an impulse response is loud for its direct sound and
 #: first reflections only, and its strongest frequency wanders and falls as the highs decay
 #: first (common practice for telling the two apart; thresholds measured on this project's
-#: virtual takes and rooms, see tests/test_deconvolve.py).
+#: virtual takes and rooms, see tests/test_cli_analyze.py).
 SWEEP_LOUD_S = 0.5
 SWEEP_MIN_OCTAVES = 3.0
 SWEEP_MIN_CORRELATION = 0.9

@@ -227,7 +227,7 @@ class EnergyFigures:
 #: At most this share of the energy after a split time (of the first moment, for Ts; of the
 #: reverberant energy, for the DRR) may come from extrapolating the band's late decay past the
 #: point where it meets the noise (Lundeby's compensation). Beyond it the figure rests more on
-#: the fitted slope than on the response: a slope 2× wrong then moves C50 by more than 1 dB
+#: the fitted slope than on the response: a slope 2× wrong then moves C50 by about 1 dB
 #: (derived: 10 lg(1 + 0.25) = 0.97 dB for a tail half as long), so the figure is left out
 #: (common practice for the bound).
 MAX_EXTRAPOLATED_SHARE: float = 0.25
