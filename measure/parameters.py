@@ -871,9 +871,9 @@ def _source_level_flags(figures: list[BandFigures]) -> list[BandFigures]:
     for bf in figures:
         lv = level.get(bf.band)
         if lv is not None and lv < ref - SOURCE_WEAK_DB:
-            note = (f"{bf.label}: the source is {ref - lv:.0f} dB weaker in this band than at "
-                    "500 Hz–2 kHz (per hertz), a small loudspeaker?; its figures rest on what "
-                    "little it radiates here, and its decay range says how far")
+            note = (f"{bf.band.name}: the source is {ref - lv:.0f} dB weaker in this band than "
+                    "at 500 Hz–2 kHz (per hertz; a small loudspeaker?): its figures rest on the "
+                    "little it radiates here, as far as its decay range allows")
             bf = dataclasses.replace(bf, flags=bf.flags + (note,))
         out.append(bf)
     return out
