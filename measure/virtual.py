@@ -29,7 +29,8 @@ from measure.bands import complementary_masks
 from measure.errors import ParameterError
 
 __all__ = ["VirtualRoom", "room_ir", "virtual_take", "background_noise", "loudspeaker_ir",
-           "impulsive_noise", "DEMO_ROOMS", "OCTAVE_CENTERS_HZ", "NOISE_KINDS"]
+           "impulsive_noise", "VirtualSpace", "positioned_ir", "DEMO_ROOMS",
+           "OCTAVE_CENTERS_HZ", "NOISE_KINDS"]
 
 NoiseKind = Literal["white", "pink", "rumble"]
 #: Background noises the virtual take can add (see :func:`background_noise`).
@@ -375,3 +376,130 @@ DEMO_ROOMS: tuple[VirtualRoom, ...] = (
                  reflections=((0.0035, 0.45), (0.0081, -0.31), (0.0149, 0.26)),
                  length_s=3.5, tail_onset_s=0.004),
 )
+
+
+# ---------------------------------------------------------------------------------------------
+# A room with a source and a microphone in it: distance and direction
+
+@dataclass(frozen=True, slots=True)
+class VirtualSpace:
+    """A room in which a source can be heard from a distance and an angle.
+
+    Parameters
+    ----------
+    name : str
+    band_centers_hz : tuple of float
+        Band centres of ``rt_s`` and ``directivity`` (ascending).
+    rt_s : tuple of float, > 0, s
+        Reverberation time per band.
+    volume_m3 : float, > 0, m³
+        Sets the absorption area A = 0.161·V/T per band (Sabine) and so the reverberant level.
+    directivity : tuple of float, 0..0.5
+        b per band of the source's directivity D(θ, f) = 1 − b + b·cos θ (amplitude re on axis;
+        b = 0 omnidirectional, 0.5 a cardioid); interpolated in log frequency, held outside.
+    temperature_c, humidity_percent : float
+        Air for the speed of sound and the ISO 9613-1 absorption of the direct path.
+    revised_theory : bool
+        Barron's revised theory: the reverberant energy arriving after the direct sound at
+        distance d is the classical one times exp(−13.8155·d/(c·T)); else constant (classical).
+    air_absorption : bool
+        Apply ISO 9613-1 absorption to the direct path (off: spreading alone).
+    length_s : float, > 0, s
+    """
+
+    name: str
+    band_centers_hz: tuple[float, ...]
+    rt_s: tuple[float, ...]
+    volume_m3: float
+    directivity: tuple[float, ...] = ()
+    temperature_c: float = 20.0
+    humidity_percent: float = 50.0
+    revised_theory: bool = True
+    air_absorption: bool = True
+    length_s: float = 2.0
+
+    def __post_init__(self) -> None:
+        if len(self.band_centers_hz) != len(self.rt_s) or not self.rt_s:
+            raise ParameterError("give one reverberation time per band centre")
+        if self.directivity and len(self.directivity) != len(self.band_centers_hz):
+            raise ParameterError("give one directivity value per band centre, or none")
+        if any(not 0.0 <= b <= 0.5 for b in self.directivity):
+            raise ParameterError("directivity values b must lie in 0..0.5 (0.5: a cardioid)")
+        for t in self.rt_s:
+            check_positive(t, "reverberation time", unit="s")
+        check_positive(self.volume_m3, "volume", unit="m³")
+        check_positive(self.length_s, "length", unit="s")
+
+    def _b(self, f_hz: np.ndarray) -> np.ndarray:
+        f = np.maximum(np.asarray(f_hz, dtype=np.float64), 1e-3)
+        if not self.directivity:
+            return np.zeros(f.shape)
+        return np.interp(np.log2(f), np.log2(self.band_centers_hz), self.directivity)
+
+    def directivity_db(self, angle_deg: float, f_hz: np.ndarray) -> np.ndarray:
+        """20·lg D(θ, f), re the source's axis."""
+        b = self._b(f_hz)
+        d = 1.0 - b + b * math.cos(math.radians(angle_deg))
+        return 20.0 * np.log10(np.maximum(d, 1e-6))
+
+    def directivity_factor(self, f_hz: np.ndarray) -> np.ndarray:
+        """Q = 1/⟨D²⟩ with ⟨D²⟩ = (1 − b)² + b²/3, the mean of D² over the sphere (derived:
+        ½∫₀^π (1 − b + b cos θ)² sin θ dθ)."""
+        b = self._b(f_hz)
+        return 1.0 / ((1.0 - b) ** 2 + b * b / 3.0)
+
+    def critical_distance_m(self, f_hz: float) -> float:
+        """r_c = √(Q·A/(16π)), A = 0.161·V/T (measurement.md §7; ≈ 0.057·√(Q·V/T))."""
+        t = float(np.interp(math.log2(f_hz), np.log2(self.band_centers_hz), self.rt_s))
+        q = float(self.directivity_factor(np.array([f_hz]))[0])
+        return math.sqrt(q * 0.161 * self.volume_m3 / t / (16.0 * math.pi))
+
+
+def positioned_ir(space: VirtualSpace, fs: int, *, distance_m: float, angle_deg: float = 0.0,
+                  seed: int = 0) -> np.ndarray:
+    """The response of ``space`` with the microphone ``distance_m`` from the source, at
+    ``angle_deg`` off its axis.
+
+    The direct sound, 10 ms + d/c into the response, has the spectrum
+    (1/d)·D(θ, f)·10^(−α(f)·d/20) (on axis at 1 m: a unit impulse; α of ISO 9613-1,
+    measure.attenuation.air_absorption_db_per_m). The reverberant part is band noise decaying at
+    each band's rate (as :func:`room_ir`), starting 1 ms after the direct sound, whose energy in
+    band b is β_b·16π/(Q_b·A_b): β_b the band's share of a unit impulse's energy, so that the
+    direct and reverberant energies on axis meet at r_c = √(Q·A/(16π)) (classical diffuse-field
+    theory, derived), times exp(−13.8155·d/(c·T_b)) with ``revised_theory``.
+    """
+    from measure.attenuation import air_absorption_db_per_m, speed_of_sound_m_s
+
+    fs = check_fs(fs)
+    check_positive(distance_m, "distance", unit="m")
+    n = int(round(space.length_s * fs))
+    n_fft = 1 << int(math.ceil(math.log2(2 * n)))
+    f = np.fft.rfftfreq(n_fft, 1.0 / fs)
+    c = speed_of_sound_m_s(space.temperature_c)
+    t0 = 0.010 + distance_m / c
+    mag = 10.0 ** (space.directivity_db(angle_deg, f) / 20.0) / distance_m
+    if space.air_absorption:
+        mag *= 10.0 ** (-air_absorption_db_per_m(np.maximum(f, 1.0),
+                                                 temperature_c=space.temperature_c,
+                                                 humidity_percent=space.humidity_percent)
+                        * distance_m / 20.0)
+    direct = np.fft.irfft(mag * np.exp(-2j * np.pi * f * t0), n_fft)[:n]
+    rng = np.random.default_rng(seed)
+    noise_spec = np.fft.rfft(rng.standard_normal(n_fft))
+    masks = complementary_masks(space.band_centers_hz, f, transition_octaves=CROSSFADE_OCTAVES)
+    t = np.arange(n) / fs - (t0 + 0.001)
+    build = 0.5 - 0.5 * np.cos(math.pi * np.clip(t / 0.002, 0.0, 1.0))
+    q = space.directivity_factor(np.asarray(space.band_centers_hz))
+    tail = np.zeros(n)
+    for mask, rt, q_b in zip(masks, space.rt_s, q, strict=True):
+        area = 0.161 * space.volume_m3 / rt
+        beta = float(np.sum(np.fft.irfft(mask, n_fft) ** 2))  # the band's share of an impulse
+        energy = beta * 16.0 * math.pi / (q_b * area)
+        if space.revised_theory:
+            energy *= math.exp(-DECAY_60DB * distance_m / (c * rt))
+        band = np.fft.irfft(noise_spec * mask, n_fft)[:n]
+        band *= np.exp(-0.5 * DECAY_60DB * np.maximum(t, 0.0) / rt) * build
+        e = float(np.sum(band * band))
+        if e > 0:
+            tail += band * math.sqrt(energy / e)
+    return direct + tail
