@@ -122,6 +122,29 @@ class RoomModel:
         """A copy with some fields changed (validated again)."""
         return dataclasses.replace(self, **changes)
 
+    def with_room_rolloff(self, rolloff: float) -> RoomModel:
+        """A copy whose I3DL2 set carries a measured RoomRolloffFactor (the rolloff of the
+        reverberant level over a distance series, measure.attenuation), clamped to the
+        guideline's 0..10 with the wanted value noted when it had to be."""
+        from measure.model.i3dl2 import I3DL2_RANGES
+
+        if self.i3dl2 is None:
+            raise ParameterError("the model holds no I3DL2 set to carry a RoomRolloffFactor; "
+                                 "fit it again with `measure fit`")
+        lo, hi, _ = I3DL2_RANGES["RoomRolloffFactor"]
+        doc = {k: (dict(v) if isinstance(v, dict) else list(v) if isinstance(v, list) else v)
+               for k, v in self.i3dl2.items()}
+        value = min(max(float(rolloff), lo), hi)
+        doc.setdefault("values", {})["RoomRolloffFactor"] = value
+        clamped = doc.setdefault("clamped", {})
+        clamped.pop("RoomRolloffFactor", None)
+        if value != rolloff:
+            clamped["RoomRolloffFactor"] = float(rolloff)
+        notes = [n for n in doc.get("notes", []) if not n.startswith("RoomRolloffFactor")]
+        doc["notes"] = [f"RoomRolloffFactor {value:.3f}: the reverberant level's rolloff "
+                        "measured over a distance series"] + notes
+        return self.replace(i3dl2=doc)
+
     def to_dict(self) -> dict[str, Any]:
         """The JSON object of the model file (module notes)."""
         return {
