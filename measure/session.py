@@ -213,3 +213,25 @@ def list_takes(captures: str | os.PathLike[str]) -> list[Take]:
                 out.append(Take(room=folder.name, position=m.group(1), number=int(m.group(2)),
                                 wav=p, json=sidecar_path(p)))
     return out
+
+
+def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[str, Any]]]:
+    """The newest take of every position in one room's folder, with its sidecar; takes whose
+    sidecar says REDO are passed over for an older good one when there is one."""
+    folder = Path(room_folder)
+    pat = re.compile(r"(.+)-take(\d+)\.wav", re.IGNORECASE)
+    by_position: dict[str, list[Take]] = {}
+    for p in sorted(folder.iterdir()) if folder.is_dir() else []:
+        m = pat.fullmatch(p.name)
+        if m and not p.name.startswith(".") and sidecar_path(p).exists():
+            by_position.setdefault(m.group(1), []).append(
+                Take(room=folder.name, position=m.group(1), number=int(m.group(2)), wav=p,
+                     json=sidecar_path(p)))
+    out = []
+    for takes in by_position.values():
+        takes.sort(key=lambda t: t.number, reverse=True)
+        docs = [(t, read_json(t.json)) for t in takes]
+        good = [(t, d) for t, d in docs
+                if (d.get("verdict") or {}).get("verdict", "good") == "good"]
+        out.append((good or docs)[0])
+    return sorted(out, key=lambda td: td[0].position)

@@ -30,6 +30,7 @@ COMMANDS: tuple[str, ...] = (
     "measure.cli.cmd_import",
     "measure.cli.cmd_ir",
     "measure.cli.cmd_analyze",
+    "measure.cli.cmd_attenuation",
     "measure.cli.cmd_fit",
     "measure.cli.cmd_render",
     "measure.cli.cmd_auralize",
