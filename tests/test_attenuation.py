@@ -152,6 +152,25 @@ def test_the_critical_distance_of_a_virtual_room_is_sabines():
         assert series.critical_distance_m == pytest.approx(want, rel=0.15)
 
 
+def test_room_sound_in_the_direct_window_is_sized_and_noted_beyond_the_critical_distance():
+    # Beyond r_c (here 0.057·√(V/T) = 0.93 m, Sabine, measurement.md §7) the early room sound
+    # inside a 4 ms direct window rivals the direct sound and the gain reads high; the truth is
+    # the virtual room's direct path, 20·lg(d_ref/d) (spreading; air absorption goes to the
+    # low-pass corner). The estimate is an upper size: never below the true excess beyond the
+    # reference's own, small where the direct sound dominates, and a note names the far ones.
+    room = VirtualSpace("hall", OCTAVE_CENTERS_HZ, (1.5,) * 8, volume_m3=400.0)
+    d = [0.5, 1.0, 2.0, 4.0, 8.0]
+    series = distance_series([positioned_ir(room, FS, distance_m=x, seed=60 + i)
+                              for i, x in enumerate(d)], FS, d)
+    ref = series.reference.room_in_window_db
+    for p in series.positions:
+        excess = p.transfer.gain_db - 20.0 * math.log10(0.5 / p.distance_m)
+        assert p.room_in_window_db - ref >= excess - 0.2
+    assert series.positions[0].room_in_window_db < 0.2
+    assert series.positions[-1].room_in_window_db > 0.5
+    assert any("8 m" in n and "--window" in n for n in series.notes)
+
+
 def test_the_reverberant_level_falls_as_barrons_revised_theory_says():
     # Barron & Lee 1988 (citation from memory): the reverberant energy after the direct sound
     # at distance d is the classical one times exp(−13.8155·d/(c·T)), i.e. −60·d/(c·T) dB;
