@@ -14,6 +14,9 @@ smoothed in fractional octaves and divided; the ratio in dB is fitted by robust 
 a gain, a first-order low-pass and a first-order high-pass corner. A corner that the fit puts
 outside the analysed band, or whose removal changes the fit by less than
 :data:`CORNER_MIN_EFFECT_DB`, is "not identified" (None with the reason), never a number.
+Beyond the critical distance the window also holds early room sound, which raises the gain;
+:func:`room_in_window_db` sizes it per position and the series notes where it exceeds
+:data:`ROOM_IN_WINDOW_NOTE_DB` (a shorter window is the remedy).
 
 Over a distance series (:func:`distance_series`):
 
