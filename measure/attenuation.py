@@ -946,6 +946,14 @@ def angle_series(responses: Sequence[np.ndarray], fs: int, angles_deg: Sequence[
         di[lab] = directivity_index_db(angs, list(rel[lab].values()))
     if any(v is None for v in di.values()):
         notes.append("directivity index: the series must run from the axis to 90° or beyond")
+    roomy = [p for p in positions if p.room_in_window_db is not None
+             and p.room_in_window_db > ROOM_IN_WINDOW_NOTE_DB]
+    if roomy:
+        notes.append("room sound inside the direct window may raise the level by up to "
+                     + ", ".join(f"{p.room_in_window_db:.1f} dB at {p.angle_deg:g}°"
+                                 for p in roomy)
+                     + ", flattening the directivity; measure it closer to the source (well "
+                     "inside the critical distance) or with a shorter --window")
     return AngleSeries(positions, ref, di, rel, tuple(notes))
 
 

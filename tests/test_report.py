@@ -18,12 +18,14 @@ from measure.parameters import analyze_ir
 from measure.report import (
     fit_line,
     plot_analysis,
+    plot_attenuation,
     plot_model_fit,
     save_figure,
     write_analysis_plot,
+    write_attenuation_plot,
     write_model_plot,
 )
-from measure.virtual import DEMO_ROOMS, room_ir
+from measure.virtual import DEMO_ROOMS, OCTAVE_CENTERS_HZ, VirtualSpace, positioned_ir, room_ir
 
 FS = 48000
 OFFICE = next(r for r in DEMO_ROOMS if r.name == "office")  # the shortest demo room (1.5 s)
@@ -262,6 +264,66 @@ def test_model_figure_without_curves(model_case):
         plot_model_fit(model_case[0], None, report)
     with pytest.raises(ParameterError, match="FitReport"):
         plot_model_fit(None, None, report.to_dict())
+
+
+# ---------------------------------------------------------------------------------------------
+# plot_attenuation
+
+
+@pytest.fixture(scope="module")
+def attenuation_doc():
+    from measure.attenuation import analyze_series
+
+    room = VirtualSpace("hall", OCTAVE_CENTERS_HZ, (1.4,) * 8, volume_m3=500.0,
+                        directivity=(0.0, 0.05, 0.1, 0.2, 0.3, 0.4, 0.45, 0.45), length_s=1.5)
+    dist = [1.0, 2.0, 4.0, 8.0, 16.0]
+    ang = [0.0, 45.0, 90.0, 135.0, 180.0]
+    h = [positioned_ir(room, FS, distance_m=d, seed=i) for i, d in enumerate(dist)]
+    h += [positioned_ir(room, FS, distance_m=0.5, angle_deg=a, seed=10 + i)
+          for i, a in enumerate(ang)]
+    return analyze_series(h, FS, distances_m=dist + [0.5] * 5, angles_deg=[0.0] * 5 + ang
+                          ).to_dict()
+
+
+def _line(ax, label):
+    return next(ln for ln in ax.get_lines() if ln.get_label() == label)
+
+
+def test_attenuation_figure_draws_the_documents_numbers(attenuation_doc):
+    doc = attenuation_doc
+    fig = plot_attenuation(doc, title="hall")
+    gain, drr, lowpass, muffling, octaves = [ax for ax in fig.axes if ax.get_title(loc="left")]
+    # The measured points are the document's, at its distances (no re-computation).
+    pts = _line(gain, "direct, measured")
+    assert list(pts.get_xdata()) == [p["distance_m"] for p in doc["positions"]]
+    np.testing.assert_allclose(pts.get_ydata(), [p["gain_db"] for p in doc["positions"]])
+    # The free-field reference falls 20·lg 2 = 6.02 dB per doubling (spherical spreading).
+    ff = _line(gain, "free field, −6.02 dB per doubling")
+    x, y = np.asarray(ff.get_xdata()), np.asarray(ff.get_ydata())
+    np.testing.assert_allclose(np.diff(y) / np.diff(np.log2(x)), -20 * np.log10(2), rtol=1e-9)
+    # The critical distance is the line crossing 0 dB where the document puts it.
+    rc = next(ln for ln in drr.get_lines() if ln.get_label().startswith("critical distance"))
+    assert rc.get_xdata()[0] == pytest.approx(doc["critical_distance_m"])
+    assert f"{doc['critical_distance_m']:.2f} m" in rc.get_label()
+    # Units on every axis, log distance axes.
+    for ax in (gain, drr, lowpass):
+        assert ax.get_xscale() == "log" and ax.get_xlabel() == "distance (m)"
+    for ax in (gain, drr, lowpass, muffling, octaves):
+        assert "(" in ax.get_ylabel() and ")" in ax.get_ylabel()
+    assert lowpass.get_yscale() == "log" and lowpass.get_ylabel() == "low-pass corner (Hz)"
+    # One line per octave in the direction panel, its label carrying the directivity index.
+    di = doc["direction"]["directivity_index_db"]
+    labels = [ln.get_label() for ln in octaves.get_lines()]
+    assert labels == [f"{b} Hz (DI {v:.1f} dB)" for b, v in di.items()]
+    _no_new_pyplot_figures()
+
+
+def test_attenuation_plot_refuses_a_document_without_a_series(attenuation_doc, tmp_path):
+    with pytest.raises(ParameterError, match="attenuation"):
+        plot_attenuation({"nothing": 1})
+    with pytest.raises(ParameterError, match="neither"):
+        plot_attenuation({"positions": []})
+    _check_png(write_attenuation_plot(tmp_path / "a.png", attenuation_doc))
 
 
 # ---------------------------------------------------------------------------------------------

@@ -18,10 +18,12 @@ from measure.report.plots import (
     check_png_path,
     fit_line,
     plot_analysis,
+    plot_attenuation,
     plot_model_fit,
     require_matplotlib,
     save_figure,
     write_analysis_plot,
+    write_attenuation_plot,
     write_model_plot,
 )
 
@@ -30,9 +32,11 @@ __all__ = [
     "check_png_path",
     "fit_line",
     "plot_analysis",
+    "plot_attenuation",
     "plot_model_fit",
     "require_matplotlib",
     "save_figure",
     "write_analysis_plot",
+    "write_attenuation_plot",
     "write_model_plot",
 ]

@@ -53,6 +53,8 @@ __all__ = [
     "save_figure",
     "write_analysis_plot",
     "write_model_plot",
+    "plot_attenuation",
+    "write_attenuation_plot",
 ]
 
 #: What to do when matplotlib is missing.
@@ -675,6 +677,166 @@ def _mark_missing(ax: Any, x: np.ndarray, v: np.ndarray, colour: str) -> None:
 
 
 # ---------------------------------------------------------------------------------------------
+# Distance and direction
+
+_C_DIRECT = _C_CURVE
+_C_REVERB = _C_T20
+_C_AIR = _C_GREY
+
+
+def _nums(rows: list[dict[str, Any]], key: str) -> np.ndarray:
+    return np.array([np.nan if r.get(key) is None else float(r[key]) for r in rows])
+
+
+def plot_attenuation(doc: dict[str, Any], *, title: str = "") -> Any:
+    """Draw the curves of ``measure attenuation``: the JSON document of
+    :meth:`measure.attenuation.Attenuation.to_dict`.
+
+    A distance series gives three panels against distance (log axis): the direct gain with the
+    fitted law and the free-field inverse-distance law (−6.02 dB per doubling), and the
+    reverberant level; the direct-to-reverberant ratio with its line in lg d, the critical
+    distance and the wet fraction; the fitted low-pass corner beside the one ISO 9613-1 air
+    absorption alone gives. An angle series gives two: gain and low-pass corner per angle, and
+    the level per octave against angle with the directivity index per octave.
+
+    Raises
+    ------
+    ParameterError
+        If ``doc`` holds neither a distance nor an angle series.
+    MissingDependencyError
+        If matplotlib is not installed.
+    """
+    title = _check_title(title)
+    if not isinstance(doc, dict) or "positions" not in doc:
+        raise ParameterError("doc must be the JSON object of measure attenuation")
+    distance = doc.get("rolloff_factor") is not None and doc.get("direct_law") is not None
+    direction = doc.get("direction")
+    if not distance and direction is None:
+        raise ParameterError("the document holds neither a distance nor an angle series")
+    fig = _new_figure(13.0, 8.0)
+    heights = ([3.0] if distance else []) + ([3.0] if direction is not None else [])
+    rows = _rows(fig, heights, [0.9] * (len(heights) - 1))
+    if distance:
+        _draw_distance(fig, _gs(fig, rows[0], 1, 3, wgap_in=1.6), doc)
+    if direction is not None:
+        _draw_direction(fig, _gs(fig, rows[-1], 1, 2, wgap_in=1.6), direction)
+    if title:
+        fig.suptitle(title, fontsize=13, y=1.0 - 0.12 / fig.get_figheight(), va="top")
+    return fig
+
+
+def _log_distance_axis(ax: Any, d: np.ndarray) -> None:
+    ax.set_xscale("log")
+    ax.set_xlim(float(np.min(d)) / 1.25, float(np.max(d)) * 1.25)
+    ax.set_xlabel("distance (m)")
+    ax.grid(True, which="both", alpha=0.3)
+
+
+def _draw_distance(fig: Any, row: Any, doc: dict[str, Any]) -> None:
+    pos = doc["positions"]
+    d = _nums(pos, "distance_m")
+    reg = doc["curves"]["regular"]
+    dr = _nums(reg, "distance_m")
+    d_ref = float(doc["reference_distance_m"])
+    law = doc["direct_law"]
+    ax = fig.add_subplot(row[0])
+    ax.plot(dr, -20.0 * np.log10(dr / d_ref), color=_C_GREY, ls=":", lw=1.2,
+            label="free field, −6.02 dB per doubling")
+    ax.plot(dr, _nums(reg, "direct_gain_db"), color=_C_DIRECT, ls="-", lw=1.4,
+            label=f"direct, {law['better']} law fitted")
+    ax.plot(d, _nums(pos, "gain_db"), color=_C_DIRECT, ls="none", marker="o", ms=5,
+            label="direct, measured")
+    if doc.get("room_law") is not None:
+        ax.plot(dr, _nums(reg, "reverberant_gain_db"), color=_C_REVERB, ls="--", lw=1.4,
+                label="reverberant, fitted")
+        rev = _nums(pos, "reverberant_db")
+        ref = next(p for p in pos if p["distance_m"] == d_ref)
+        if ref.get("reverberant_db") is not None:
+            ax.plot(d, rev - float(ref["reverberant_db"]), color=_C_REVERB, ls="none",
+                    marker="s", ms=5, mfc="none", label="reverberant, measured")
+    _log_distance_axis(ax, np.concatenate([d, dr]))
+    ax.set_ylabel(f"level re {d_ref:g} m (dB)")
+    ax.set_title(f"Gain (rolloff factor {doc['rolloff_factor']:.2f})", fontsize=10, loc="left")
+    ax.legend(fontsize=7, loc="lower left")
+    ax = fig.add_subplot(row[1])
+    ax.axhline(0.0, color="k", lw=0.8)
+    line = doc.get("drr_line")
+    if line is not None:
+        ax.plot(dr, line["db_at_1m"] + line["db_per_decade"] * np.log10(dr), color=_C_DIRECT,
+                lw=1.4, label="line in lg d")
+    ax.plot(d, _nums(pos, "drr_db"), color=_C_DIRECT, ls="none", marker="o", ms=5,
+            label="measured")
+    rc = doc.get("critical_distance_m")
+    if rc is not None:
+        ax.axvline(rc, color="k", ls="--", lw=1.0, label=f"critical distance {rc:.2f} m")
+    ax.set_ylabel("direct-to-reverberant ratio (dB)")
+    ax.set_title("Direct-to-reverberant ratio and wet fraction", fontsize=10, loc="left")
+    _log_distance_axis(ax, np.concatenate([d, dr]))
+    wet = ax.twinx()
+    wet.plot(dr, _nums(reg, "wet_fraction"), color=_C_REVERB, ls="--", lw=1.4)
+    wet.set_ylim(0.0, 1.0)
+    wet.set_ylabel("wet fraction (reverb send, 0-1)")
+    ax.plot([], [], color=_C_REVERB, ls="--", label="wet fraction (right axis)")
+    ax.legend(fontsize=7, loc="upper right")
+    ax = fig.add_subplot(row[2])
+    lp = _nums(pos, "lowpass_hz")
+    ok = np.isfinite(lp)
+    ax.plot(dr, _nums(reg, "expected_lowpass_hz"), color=_C_AIR, ls=":", lw=1.4,
+            label="air absorption alone (ISO 9613-1)")
+    ax.plot(d[ok], lp[ok], color=_C_DIRECT, ls="none", marker="o", ms=5, label="fitted")
+    if (~ok).any():
+        ax.plot(d[~ok], np.zeros(int((~ok).sum())), ls="none", marker="x", ms=7, mew=1.8,
+                color=_C_DIRECT, transform=ax.get_xaxis_transform(), clip_on=False,
+                label="not identified")
+    ax.set_yscale("log")
+    ax.set_ylim(1000.0, 24000.0)
+    _log_distance_axis(ax, np.concatenate([d, dr]))
+    ax.set_ylabel("low-pass corner (Hz)")
+    air = doc.get("air", {})
+    ax.set_title(f"Low-pass corner ({air.get('temperature_c', 20):g} °C, "
+                 f"{air.get('humidity_percent', 50):g} % RH)", fontsize=10, loc="left")
+    ax.legend(fontsize=7, loc="lower left")
+
+
+def _draw_direction(fig: Any, row: Any, direction: dict[str, Any]) -> None:
+    rows = direction["angles"]
+    a = _nums(rows, "angle_deg")
+    ax = fig.add_subplot(row[0])
+    ax.plot(a, _nums(rows, "gain_db"), color=_C_DIRECT, marker="o", ms=5, lw=1.2,
+            label="gain")
+    ax.set_xlabel("angle off the source's axis (°)")
+    ax.set_ylabel("gain re on axis (dB)")
+    ax.grid(True, alpha=0.3)
+    lp_ax = ax.twinx()
+    lp = _nums(rows, "lowpass_hz")
+    ok = np.isfinite(lp)
+    lp_ax.plot(a[ok], lp[ok], color=_C_REVERB, marker="s", ms=5, mfc="none", ls="--", lw=1.2)
+    lp_ax.set_yscale("log")
+    lp_ax.set_ylim(500.0, 24000.0)
+    lp_ax.set_ylabel("low-pass corner (Hz)")
+    ax.plot([], [], color=_C_REVERB, marker="s", mfc="none", ls="--",
+            label="low-pass corner (right axis; none where not identified)")
+    ax.set_title("Muffling per angle", fontsize=10, loc="left")
+    ax.legend(fontsize=7, loc="lower left")
+    ax = fig.add_subplot(row[1])
+    rel = direction["relative_octave_db"]
+    di = direction["directivity_index_db"]
+    styles = ("-", "--", "-.", ":")
+    for i, (band, by_angle) in enumerate(rel.items()):
+        xs = np.array([float(k) for k in by_angle])
+        order = np.argsort(xs)
+        ys = np.array(list(by_angle.values()), dtype=np.float64)[order]
+        v = di.get(band)
+        ax.plot(xs[order], ys, ls=styles[i % len(styles)], marker="o", ms=3, lw=1.1,
+                label=f"{band} Hz (DI {'—' if v is None else f'{v:.1f}'} dB)")
+    ax.set_xlabel("angle off the source's axis (°)")
+    ax.set_ylabel("level re on axis (dB)")
+    ax.set_title("Level per octave band and directivity index", fontsize=10, loc="left")
+    ax.grid(True, alpha=0.3)
+    ax.legend(fontsize=7, loc="lower left", ncols=2)
+
+
+# ---------------------------------------------------------------------------------------------
 # One-call helpers
 
 
@@ -690,3 +852,10 @@ def write_model_plot(path: str | os.PathLike[str], measured: Any, modelled: Any,
     """:func:`plot_model_fit` and :func:`save_figure` in one call; returns the PNG's path."""
     check_png_path(path)
     return save_figure(plot_model_fit(measured, modelled, report, title=title), path)
+
+
+def write_attenuation_plot(path: str | os.PathLike[str], doc: dict[str, Any],
+                           title: str = "") -> Path:
+    """:func:`plot_attenuation` and :func:`save_figure` in one call; returns the PNG's path."""
+    check_png_path(path)
+    return save_figure(plot_attenuation(doc, title=title), path)
