@@ -176,17 +176,30 @@ def test_python_dash_m_and_help_work():
     assert r.returncode == 0 and "demo" in r.stdout and "sweep" in r.stdout
 
 
-def test_demo_runs_end_to_end_without_hardware(tmp_path, capsys):
-    code, out, err = run(["demo", "--out", str(tmp_path / "demo")], capsys)
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    """One run of `measure demo` shared by the tests that read what it wrote (30 s)."""
+    import contextlib
+    import io
+
+    root = tmp_path_factory.mktemp("demo") / "demo"
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(["demo", "--out", str(root)])
+    return code, out.getvalue(), root
+
+
+def test_demo_runs_end_to_end_without_hardware(demo_run):
+    code, out, root = demo_run
     assert code == 0
-    root = tmp_path / "demo"
     from measure.audio_io import read_audio
     from measure.deconvolve import CLIP_LEVEL
-    from measure.demo import DEMO_TAKES
+    from measure.demo import CANTEEN, DEMO_TAKES
 
     n = len(DEMO_TAKES)
     assert (root / "sweeps" / "demo-sweep.wav").exists()
-    takes = sorted((root / "captures").glob("*/*-take1.wav"))
+    takes = sorted(p for p in (root / "captures").glob("*/*-take1.wav")
+                   if p.parent.name != CANTEEN.name)
     assert len(takes) == n == 4
     for take in takes:
         # no clipped take (the parking level used to reach +1.7 dBFS), and each one judged as
@@ -206,10 +219,46 @@ def test_demo_runs_end_to_end_without_hardware(tmp_path, capsys):
         assert doc["drift_ppm"] == pytest.approx(23.0, abs=2.0)  # the demo's virtual USB mic
     assert "stairwell" in out and "Look in" in out
     models = [p for p in (root / "models").glob("*.json") if not p.name.endswith("-report.json")]
-    assert len(models) == n
+    assert len(models) == n + 1  # and the canteen's, with its measured RoomRolloffFactor
     for m in models:
         assert json.loads(m.read_text())["i3dl2"]["values"]["DecayTime"] > 0
     assert (root / "listen" / "dry.wav").exists()
     assert len(list((root / "listen").glob("*-measured.wav"))) == n
     assert len(list((root / "listen").glob("*-modelled.wav"))) == n
-    assert len(list((root / "plots").glob("*.png"))) == 2 * n
+    assert len(list((root / "plots").glob("*.png"))) == 2 * n + 1
+
+
+def test_demo_measures_distance_and_direction_in_the_canteen(demo_run):
+    # Issue "Distance and direction", item 7: a distance series (≥ 5 distances) and an angle
+    # series (≥ 5 angles) in one room, fitted from its room folder, the curves printed and the
+    # rolloff written into that room's model. Truth: the virtual canteen's direct path falls as
+    # 1/d (measure.virtual.positioned_ir, rolloff factor 1) and its source's directivity index
+    # is 10·lg Q per octave (Q = 1/⟨D²⟩, measure.virtual.VirtualSpace.directivity_factor).
+    import math
+
+    from measure.demo import CANTEEN, DEMO_SERIES
+
+    code, out, root = demo_run
+    assert code == 0
+    folder = root / "captures" / CANTEEN.name
+    sides = [json.loads(p.read_text()) for p in sorted(folder.glob("*-take1.json"))]
+    assert len(sides) == len(DEMO_SERIES)
+    assert len({s["distance_m"] for s in sides if s["angle_deg"] == 0}) >= 5
+    assert len({s["angle_deg"] for s in sides if s["distance_m"] == 1.0}) >= 5
+    doc = json.loads((root / "attenuation" / f"{CANTEEN.name}.json").read_text())
+    assert len(doc["positions"]) >= 5
+    assert doc["rolloff_factor"] == pytest.approx(1.0, abs=0.05)
+    for p in doc["positions"]:  # inside the critical distance the window holds the direct sound
+        if p["distance_m"] <= 3.0:
+            assert p["gain_db"] == pytest.approx(20 * math.log10(1.0 / p["distance_m"]),
+                                                 abs=0.3)
+    di = doc["direction"]["directivity_index_db"]
+    assert len(doc["direction"]["angles"]) >= 5
+    for band, fc in (("1k", 1000.0), ("2k", 1995.26), ("4k", 3981.07)):
+        f = np.geomspace(fc / math.sqrt(2), fc * math.sqrt(2), 200)
+        want = 10 * math.log10(float(np.mean(CANTEEN.directivity_factor(f))))
+        assert di[band] == pytest.approx(want, abs=1.0), band
+    model = json.loads((root / "models" / f"{CANTEEN.name}-axis-1m.json").read_text())
+    assert model["i3dl2"]["values"]["RoomRolloffFactor"] == pytest.approx(
+        doc["room_rolloff_factor"])
+    assert "Distance series" in out and "Angle series" in out and "critical distance" in out

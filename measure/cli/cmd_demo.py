@@ -103,8 +103,60 @@ def run(args: argparse.Namespace) -> int:
                             {"report": md.result.report.to_dict(), "i3dl2": md.i3dl2.to_dict()})
         plots = _plots(root / "plots", stem, h, ir.fs, figures, md, t)
         rows.append((t, ir, doc, md, plots, verdict))
-    print(_summary(rows, root))
+    series = _series(root, captures, sweep, sweep_wav, sweep_sha256)
+    print(_summary(rows, root) + "\n\n" + series)
     return 0
+
+
+def _series(root: Path, captures: Path, sweep, sweep_wav: Path, sweep_sha256: str) -> str:
+    """The canteen's distance and angle series: its takes filed as `measure capture` files
+    them, the curves fitted from the room folder as `measure attenuation` fits them, its model
+    with the measured RoomRolloffFactor; returns the text for the summary."""
+    from measure import audio_io, session
+    from measure.attenuation import analyze_series
+    from measure.cli._common import info, warn
+    from measure.cli.cmd_attenuation import _from_room_folder, format_report
+    from measure.demo import BUILDING, CANTEEN, DEMO_SERIES, demo_series_recording
+    from measure.errors import MissingDependencyError
+    from measure.model.fit import fit_with_i3dl2
+
+    info(f"  {CANTEEN.name}: recording {len(DEMO_SERIES)} positions for distance and "
+         "direction ...")
+    for i, p in enumerate(DEMO_SERIES):
+        y = demo_series_recording(i, sweep.program, sweep.fs)
+        session.save_take(captures, CANTEEN.name, p.position, y, sweep.fs, {
+            "source": "virtual (measure demo)", "building": BUILDING,
+            "description": f"canteen, loudspeaker at one end, microphone {p.distance_m:g} m "
+                           f"away at {p.angle_deg:g} degrees off its axis",
+            "sweep_file": str(sweep_wav), "sweep_sha256": sweep_sha256,
+            "distance_m": p.distance_m, "angle_deg": p.angle_deg,
+            "temperature_c": CANTEEN.temperature_c,
+            "humidity_percent": CANTEEN.humidity_percent})
+    info(f"  {CANTEEN.name}: fitting the distance and direction curves ...")
+    got = _from_room_folder(captures / CANTEEN.name, None)
+    result = analyze_series(got["h"], got["fs"], distances_m=got["distances"],
+                            angles_deg=got["angles"], labels=got["labels"], **got["air"])
+    doc = result.to_dict(rate=got["fs"])
+    audio_io.write_json(root / "attenuation" / f"{CANTEEN.name}.json", doc)
+    ref = result.distance.reference
+    h_ref = got["h"][got["labels"].index(ref.label)]
+    res, _ = fit_with_i3dl2(h_ref, got["fs"], source={"room": CANTEEN.name,
+                                                      "position": ref.label,
+                                                      "building": BUILDING})
+    model = res.model.with_room_rolloff(result.distance.room_law.rolloff_factor)
+    audio_io.write_json(root / "models" / f"{CANTEEN.name}-{ref.label}.json", model.to_dict())
+    try:
+        from measure.report import write_attenuation_plot
+
+        write_attenuation_plot(root / "plots" / f"{CANTEEN.name}-attenuation.png", doc,
+                               title=f"{CANTEEN.name}: distance and direction")
+    except MissingDependencyError as err:
+        warn(f"no attenuation plot: {err}")
+    return (f"{CANTEEN.name}: distance and direction (`measure attenuation "
+            f"{captures / CANTEEN.name}`)\n" + format_report(doc)
+            + f"\n  RoomRolloffFactor {model.i3dl2['values']['RoomRolloffFactor']:.3f} written "
+            f"into models/{CANTEEN.name}-{ref.label}.json; curves in attenuation/"
+            f"{CANTEEN.name}.json")
 
 
 def _plots(folder: Path, stem: str, h, fs: int, figures, md, t) -> bool:
@@ -178,12 +230,14 @@ def _summary(rows, root: Path) -> str:
     lines += ["",
               f"Look in {root}/:",
               "  sweeps/    what was played (WAV + sidecar)",
-              "  captures/  the raw takes and their sidecars (with the verdict), as `measure "
+              "  captures/  the raw takes and their sidecars (the four rooms' with the verdict), as `measure "
               "capture` files them",
               "  irs/       recovered impulse responses (32-bit float) + latency, drift, distortion",
               "  figures/   per-band room figures (the `measure analyze --json` document)",
               "  models/    compact models (MODEL.json), their renders and fit reports with I3DL2",
-              "  listen/    dry.wav, and each space measured vs modelled: compare by ear"]
+              "  listen/    dry.wav, and each space measured vs modelled: compare by ear",
+              "  attenuation/  the canteen's distance and direction curves (the `measure "
+              "attenuation --json` document)"]
     if plotted:
         lines.append("  plots/     decay curves per band and measured-vs-model charts (PNG)")
     lines.append(f"Per-band tables: measure analyze {root}/irs/<space>-<position>.wav")
