@@ -15,7 +15,8 @@ This module estimates them from a fitted room model as modeling.md §5.2 propose
   log10(E_room,LF/E_D,LF)], at most 0;
 * Diffusion = 100 × the mean normalised echo density between t1 and tm (a heuristic: the
   guideline links Diffusion to echo density but gives no measurement); Density = 100 (no
-  volume model); RoomRolloffFactor = 0 (one position cannot show a distance law).
+  volume model); RoomRolloffFactor = 0 (one position cannot show a distance law;
+  ``measure attenuation --model`` sets it from a distance series, measure.attenuation).
 
 The guideline does not say whether Reverb is an initial level or an energy, nor how DecayTime
 at "low frequencies" turns into a decay per band; :func:`render_i3dl2` fixes one reading
@@ -345,7 +346,8 @@ def estimate_i3dl2(h: np.ndarray, fs: int, model: RoomModel, *,
     from measure.model.render import default_seconds, render_model
 
     fs = check_fs(fs)
-    notes = ["RoomRolloffFactor 0: one position cannot show a distance law",
+    notes = ["RoomRolloffFactor 0: one position cannot show a distance law (`measure "
+             "attenuation --model` measures it over a distance series)",
              "Density 100 %: no room-volume model"]
     if hf_reference_hz is None:
         hf_reference_hz = DEFAULT_HF_REFERENCE_HZ
