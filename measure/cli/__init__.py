@@ -31,6 +31,7 @@ COMMANDS: tuple[str, ...] = (
     "measure.cli.cmd_ir",
     "measure.cli.cmd_analyze",
     "measure.cli.cmd_attenuation",
+    "measure.cli.cmd_compare",
     "measure.cli.cmd_fit",
     "measure.cli.cmd_render",
     "measure.cli.cmd_auralize",
