@@ -143,8 +143,8 @@ def _side(path: Path, sweep_opt: str | None, rate: int | None) -> Any:
         from measure.predict import load_room, predict
 
         pred = predict(load_room(path), rate)
-        side = side_from_figures(analyze_ir(pred.ir, rate), label=path.name,
-                                 kind="room description", h=pred.ir)
+        side = side_from_figures(analyze_ir(pred.h, rate), label=path.name,
+                                 kind="room description", h=pred.h)
         return dataclass_replace(side, notes=tuple(pred.notes))
     doc = audio_io.read_json(path, what="model or I3DL2 file")
     from measure.model.modelfile import MODEL_FORMAT
