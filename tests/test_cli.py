@@ -228,6 +228,30 @@ def test_demo_runs_end_to_end_without_hardware(demo_run):
     assert len(list((root / "plots").glob("*.png"))) == 2 * n + 1
 
 
+def test_demo_compares_each_room_with_its_model_and_description(demo_run):
+    # Issue "Compare", item 5: each room against its fitted model and its room description, and
+    # one audible difference on purpose. ISO 3382-1 Table A.1: 1 JND of T30 is 5 %; heavy carpet
+    # absorbs 0.14-0.65 from 500 Hz up where bare concrete absorbs 0.01-0.02 (measurement.md
+    # §7's handbook table), so the office without it decays several JNDs longer there.
+    code, out, root = demo_run
+    assert code == 0
+    for stem in ("stairwell-landing-2", "office-desk-4", "parking-bay-17",
+                 "plant-room-door-side"):
+        for what in ("fitted-model", "room-description"):
+            doc = json.loads((root / "comparisons" / f"{stem}-vs-{what}.json").read_text())
+            assert doc["cells"] and doc["summary"]["n_compared"] > 0
+    model = json.loads((root / "comparisons" / "office-desk-4-vs-fitted-model.json").read_text())
+    mid = [c for c in model["cells"] if c["parameter"] == "T30"
+           and c["band_hz"] in ("500", "1k", "2k", "4k")]
+    assert all(abs(c["jnd"]) <= 1.0 for c in mid)  # the fitted model holds the decay
+    bare = json.loads((root / "comparisons" /
+                       "office-desk-4-vs-the-office-with-carpet-taken-out.json").read_text())
+    t30 = {c["band_hz"]: c for c in bare["cells"] if c["parameter"] == "T30"}
+    for band in ("500", "1k", "2k", "4k", "8k"):
+        assert t30[band]["jnd"] > 3.0 and t30[band]["verdict"] == "audible difference", band
+    assert "The office without its carpet is the audible difference" in out
+
+
 def test_demo_measures_distance_and_direction_in_the_canteen(demo_run):
     # Issue "Distance and direction", item 7: a distance series (≥ 5 distances) and an angle
     # series (≥ 5 angles) in one room, fitted from its room folder, the curves printed and the

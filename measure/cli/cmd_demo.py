@@ -101,11 +101,62 @@ def run(args: argparse.Namespace) -> int:
         audio_io.write_audio(root / "listen" / f"{stem}-modelled.wav", md.wet_modelled, ir.fs)
         audio_io.write_json(root / "models" / f"{stem}-report.json",
                             {"report": md.result.report.to_dict(), "i3dl2": md.i3dl2.to_dict()})
-        plots = _plots(root / "plots", stem, h, ir.fs, figures, md, t)
-        rows.append((t, ir, doc, md, plots, verdict))
+        modelled = analyze_ir(md.model_ir, ir.fs)
+        plots = _plots(root / "plots", stem, h, ir.fs, figures, modelled, md, t)
+        comparisons = _comparisons(root, stem, t.room.name, h, ir.fs, figures, md.model_ir,
+                                   modelled)
+        rows.append((t, ir, doc, md, plots, verdict, comparisons))
     series = _series(root, captures, sweep, sweep_wav, sweep_sha256)
-    print(_summary(rows, root) + "\n\n" + series)
+    print(_summary(rows, root) + "\n\n" + _comparison_summary(rows) + "\n\n" + series)
     return 0
+
+
+def _comparisons(root: Path, stem: str, room: str, h, fs: int, figures, model_ir, modelled
+                 ) -> list[tuple[str, dict]]:
+    """The measured room against its fitted model and against its room description (and, for
+    the office, against the variant with the carpet taken out: an audible difference on
+    purpose); each comparison written to comparisons/ as `measure compare --json` writes it."""
+    from measure import audio_io
+    from measure.compare import compare_sides, side_from_figures
+    from measure.parameters import analyze_ir
+    from measure.predict import load_room, predict
+
+    measured = side_from_figures(figures, label=f"{stem} (measured)", kind="impulse response",
+                                 h=h)
+    out = []
+    model = side_from_figures(modelled, label=f"{stem} (model)", kind="model", h=model_ir)
+    out.append(("its fitted model", compare_sides(measured, model).to_dict()))
+    names = [(room, "its room description")]
+    if room == "office":
+        names.append(("office-no-carpet", "the office with its carpet taken out"))
+    for name, what in names:
+        path = Path(__file__).resolve().parents[1] / "data" / "rooms" / f"{name}.toml"
+        pred = predict(load_room(path), fs)
+        side = side_from_figures(analyze_ir(pred.h, fs), label=path.name,
+                                 kind="room description", h=pred.h)
+        out.append((what, compare_sides(measured, side).to_dict()))
+    for what, doc in out:
+        tag = what.replace("its ", "").replace(" ", "-")
+        audio_io.write_json(root / "comparisons" / f"{stem}-vs-{tag}.json", doc)
+    return out
+
+
+def _comparison_summary(rows) -> str:
+    lines = ["Measured against modelled and predicted (`measure compare`): T30 difference per "
+             "octave in ISO 3382-1 just-noticeable differences (JND, 5 %), and how many of all "
+             "compared figures differ audibly (by more than 1 JND)"]
+    for row in rows:
+        t, comparisons = row[0], row[6]
+        for what, doc in comparisons:
+            t30 = " ".join(f"{c['band_hz']} {'—' if c['jnd'] is None else format(c['jnd'], '+.1f')}"
+                           for c in doc["cells"] if c["parameter"] == "T30")
+            s = doc["summary"]
+            lines.append(f"  {t.room.name:<11} vs {what}:")
+            lines.append(f"    T30 (JND): {t30};  {s['n_audible']} of {s['n_compared']} "
+                         "figures audibly different")
+    lines.append("  The office without its carpet is the audible difference shown on purpose: its "
+                 "decay is several JNDs longer from 500 Hz up.")
+    return "\n".join(lines) + "\n"
 
 
 def _series(root: Path, captures: Path, sweep, sweep_wav: Path, sweep_sha256: str) -> str:
@@ -159,18 +210,16 @@ def _series(root: Path, captures: Path, sweep, sweep_wav: Path, sweep_sha256: st
             f"{CANTEEN.name}.json")
 
 
-def _plots(folder: Path, stem: str, h, fs: int, figures, md, t) -> bool:
+def _plots(folder: Path, stem: str, h, fs: int, figures, modelled, md, t) -> bool:
     """The analysis and model-fit figures; skipped with a note when matplotlib is missing."""
     from measure.cli._common import warn
     from measure.errors import MissingDependencyError
 
     try:
-        from measure.parameters import analyze_ir
         from measure.report import write_analysis_plot, write_model_plot
 
         write_analysis_plot(folder / f"{stem}.png", h, fs, figures,
                             title=f"{t.room.name}, {t.position}: measured")
-        modelled = analyze_ir(md.model_ir, fs)
         write_model_plot(folder / f"{stem}-model.png", figures, modelled, md.result.report,
                          title=f"{t.room.name}, {t.position}: measured vs model")
     except MissingDependencyError as err:
@@ -193,7 +242,7 @@ def _summary(rows, root: Path) -> str:
              "-" * len(head)]
     plotted = False
     notes: list[str] = []
-    for t, ir, doc, md, plots, verdict in rows:
+    for t, ir, doc, md, plots, verdict, _ in rows:
         sn = doc.get("single_numbers", {})
         worst = md.result.report.max_abs_jnd()
         worst_t = max((abs(v) for k, v in worst.items()
@@ -237,7 +286,9 @@ def _summary(rows, root: Path) -> str:
               "  models/    compact models (MODEL.json), their renders and fit reports with I3DL2",
               "  listen/    dry.wav, and each space measured vs modelled: compare by ear",
               "  attenuation/  the canteen's distance and direction curves (the `measure "
-              "attenuation --json` document)"]
+              "attenuation --json` document)",
+              "  comparisons/  each room measured against its model and its room description "
+              "(`measure compare --json`)"]
     if plotted:
         lines.append("  plots/     decay curves per band and measured-vs-model charts (PNG)")
     lines.append(f"Per-band tables: measure analyze {root}/irs/<space>-<position>.wav")
