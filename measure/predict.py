@@ -101,6 +101,7 @@ References
 from __future__ import annotations
 
 import math
+import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -108,7 +109,6 @@ from types import MappingProxyType
 from typing import Any
 
 import numpy as np
-import tomllib
 from scipy.signal import butter, sosfilt
 
 from measure._dsp import HALF_WIDTH, _kaiser_sinc
