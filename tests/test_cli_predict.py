@@ -59,6 +59,9 @@ def test_predict_reports_sabine_and_eyring(room, tmp_path, capsys):
     assert b["mean_alpha"] == pytest.approx(0.20)
     assert audio_io.read_audio(out_wav).fs == FS
     assert doc["notes"]  # the known limits are stated
+    # and the ISO 3382-1 figures of the predicted response, whose T30 follows Eyring (10 %)
+    t30 = {x["label"]: x["t30_s"] for x in doc["figures"]["bands"]}
+    assert t30["1k"] == pytest.approx(b["eyring_s"], rel=0.10)
 
 
 def test_the_inverse_use_recovers_the_descriptions_absorption(room, tmp_path, capsys):

@@ -70,7 +70,10 @@ def run(args: argparse.Namespace) -> int:
     if args.out is not None:
         path = audio_io.write_audio(args.out, pred.h, args.rate, subtype="FLOAT")
         info(f"wrote {path} ({pred.h.size / args.rate:.2f} s at {args.rate} Hz)")
+    from measure.parameters import analyze_ir
+
     doc = pred.to_dict()
+    doc["figures"] = analyze_ir(pred.h, args.rate).to_dict()  # ISO 3382-1, of the response
     if fit is not None:
         doc["absorption_fit"] = fit.to_dict()
     if args.json:
@@ -87,12 +90,19 @@ def _f(v: Any, spec: str) -> str:
 def format_report(doc: dict[str, Any]) -> str:
     """The text report of a prediction document (no numerics here)."""
     room = doc.get("room", {})
-    lines = [f"{room.get('name', 'room')}: predicted from its description"]
-    lines.append(f"  {'band':>5} {'mean α':>7} {'Sabine':>7} {'Eyring':>7}")
-    lines.append(f"  {'(Hz)':>5} {'':>7} {'(s)':>7} {'(s)':>7}")
+    lines = [f"{room.get('name', 'room')}: predicted from its description (the last four "
+             "columns: ISO 3382-1 figures of the predicted response)"]
+    lines.append(f"  {'band':>5} {'mean α':>7} {'Sabine':>7} {'Eyring':>7} {'T30':>6} "
+                 f"{'EDT':>6} {'C80':>6} {'D50':>5}")
+    lines.append(f"  {'(Hz)':>5} {'':>7} {'(s)':>7} {'(s)':>7} {'(s)':>6} {'(s)':>6} "
+                 f"{'(dB)':>6} {'':>5}")
+    figs = {b["label"]: b for b in (doc.get("figures") or {}).get("bands", [])}
     for b in doc.get("bands", []):
+        f = figs.get(b["label"], {})
         lines.append(f"  {b['label']:>5} {_f(b.get('mean_alpha'), '7.3f')} "
-                     f"{_f(b.get('sabine_s'), '7.2f')} {_f(b.get('eyring_s'), '7.2f')}")
+                     f"{_f(b.get('sabine_s'), '7.2f')} {_f(b.get('eyring_s'), '7.2f')} "
+                     f"{_f(f.get('t30_s'), '6.2f')} {_f(f.get('edt_s'), '6.2f')} "
+                     f"{_f(f.get('c80_db'), '6.1f')} {_f(f.get('d50'), '5.2f')}")
     fit = doc.get("absorption_fit")
     if fit is not None:
         what = ("mean absorption" if fit.get("material") is None
