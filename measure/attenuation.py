@@ -207,6 +207,30 @@ def first_order_ba(corner_hz: float, fs: int, kind: str) -> tuple[np.ndarray, np
 # ---------------------------------------------------------------------------------------------
 # The spectrum of the direct sound, and the fit of a ratio
 
+def _direct_window(h: np.ndarray, fs: int, window_s: float
+                   ) -> tuple[int, int, int, np.ndarray]:
+    """(peak, start, end, taper) of the direct-sound window of ``h``: from
+    :data:`WINDOW_PRE_S` before the strongest sample to ``window_s`` after it, with a half-Hann
+    taper of 0.5 ms at each end (common practice)."""
+    p = int(np.argmax(np.abs(h)))
+    a = max(p - int(round(WINDOW_PRE_S * fs)), 0)
+    b = min(p + int(round(window_s * fs)), h.size)
+    w = np.ones(b - a)
+    nt = max(int(round(0.0005 * fs)), 1)
+    if w.size > 2 * nt:
+        ramp = 0.5 - 0.5 * np.cos(np.pi * (np.arange(nt) + 0.5) / nt)
+        w[:nt] *= ramp
+        w[-nt:] *= ramp[::-1]
+    return p, a, b, w
+
+
+def _fft_length(n_samples: int, fs: int, f_lo_hz: float) -> int:
+    """A power of two holding ``n_samples`` and resolving ``f_lo_hz`` (2 bins per its period),
+    from 1024 to 2^22."""
+    n = 1 << int(math.ceil(math.log2(max(n_samples, 2 * int(fs / max(f_lo_hz, 1.0))))))
+    return min(max(n, 1024), 1 << 22)
+
+
 def direct_spectrum(h: np.ndarray, fs: int, f_grid_hz: np.ndarray, *,
                     window_s: float | None = DEFAULT_WINDOW_S,
                     fraction: int | None = DEFAULT_FRACTION) -> np.ndarray:
@@ -225,17 +249,9 @@ def direct_spectrum(h: np.ndarray, fs: int, f_grid_hz: np.ndarray, *,
         seg = h
     else:
         check_positive(window_s, "window", unit="s")
-        p = int(np.argmax(np.abs(h)))
-        a = max(p - int(round(WINDOW_PRE_S * fs)), 0)
-        b = min(p + int(round(window_s * fs)), h.size)
-        seg = h[a:b].copy()
-        nt = max(int(round(0.0005 * fs)), 1)
-        if seg.size > 2 * nt:
-            ramp = 0.5 - 0.5 * np.cos(np.pi * (np.arange(nt) + 0.5) / nt)
-            seg[:nt] *= ramp
-            seg[-nt:] *= ramp[::-1]
-    n = 1 << int(math.ceil(math.log2(max(seg.size, 2 * int(fs / max(f_grid_hz[0], 1.0))))))
-    n = min(max(n, 1024), 1 << 22)
+        _, a, b, w = _direct_window(h, fs, window_s)
+        seg = h[a:b] * w
+    n = _fft_length(seg.size, fs, f_grid_hz[0])
     power = np.abs(np.fft.rfft(seg, n)) ** 2
     f = np.fft.rfftfreq(n, 1.0 / fs)
     return smooth_power(f[1:], power[1:], f_grid_hz, fraction=fraction)
@@ -548,23 +564,14 @@ def room_in_window_db(h: np.ndarray, fs: int, f_grid_hz: np.ndarray, *,
     from measure.model._smoothing import smooth_power
 
     h = check_signal(h, "h", ndim=(1,))
-    p = int(np.argmax(np.abs(h)))
-    a = max(p - int(round(WINDOW_PRE_S * fs)), 0)
+    p, a, b, w = _direct_window(h, fs, window_s)
     nw = int(round(window_s * fs))
-    b = min(p + nw, h.size)
     after = h[b:min(b + nw, h.size)]
     if after.size < nw // 2:
         return 0.0
-    w = np.ones(b - a)
-    nt = max(int(round(0.0005 * fs)), 1)
-    if w.size > 2 * nt:
-        ramp = 0.5 - 0.5 * np.cos(np.pi * (np.arange(nt) + 0.5) / nt)
-        w[:nt] *= ramp
-        w[-nt:] *= ramp[::-1]
     scale = float(np.sum(w[p - a:] ** 2)) / after.size
     s_win = direct_spectrum(h, fs, f_grid_hz, window_s=window_s, fraction=fraction)
-    n = 1 << int(math.ceil(math.log2(max(after.size, 2 * int(fs / max(f_grid_hz[0], 1.0))))))
-    n = min(max(n, 1024), 1 << 22)
+    n = _fft_length(after.size, fs, f_grid_hz[0])
     f = np.fft.rfftfreq(n, 1.0 / fs)
     s_room = scale * smooth_power(f[1:], (np.abs(np.fft.rfft(after, n)) ** 2)[1:], f_grid_hz,
                                   fraction=fraction)
@@ -577,9 +584,7 @@ def _octave_direct_db(h: np.ndarray, fs: int, f_lo: float, f_hi: float) -> float
     """Direct-sound energy in [f_lo, f_hi]: the direct window of the broadband response (the
     same window as the spectra's), band-limited afterwards, so a slow band filter's ringing
     cannot smear the room into it."""
-    p = int(np.argmax(np.abs(h)))
-    a = max(p - int(round(WINDOW_PRE_S * fs)), 0)
-    b = min(p + int(round(DEFAULT_WINDOW_S * fs)), h.size)
+    _, a, b, _ = _direct_window(h, fs, DEFAULT_WINDOW_S)
     seg = h[a:b]
     m = 1 << int(math.ceil(math.log2(max(8 * seg.size, int(4 * fs / f_lo)))))
     S = np.abs(np.fft.rfft(seg, m)) ** 2
