@@ -14,11 +14,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 import scipy.signal
+from _captures import room_folder
 
-from measure import audio_io, session
+from measure import audio_io
 from measure.cli import main
-from measure.sweep import SweepSpec, make_sweep
-from measure.virtual import OCTAVE_CENTERS_HZ, VirtualSpace, positioned_ir, virtual_take
+from measure.virtual import OCTAVE_CENTERS_HZ, VirtualSpace, positioned_ir
 
 FS = 48000
 DISTANCES = (1.0, 2.0, 4.0, 8.0)
@@ -142,23 +142,12 @@ def test_an_angle_series_from_files(tmp_path, capsys):
 
 
 def _room_folder(root: Path, distances: list[float | None]) -> Path:
-    """A captures tree as `measure capture` files it: a sweep, and per position a take whose
-    sidecar names the sweep and carries the distance."""
-    spec = SweepSpec(fs=FS, f1_hz=20.0, f2_hz=24000.0, duration_s=1.0, gap_s=1.2,
-                     lead_in_s=0.2, level_dbfs=-12.0)
-    sweep = make_sweep(spec)
-    sweep_wav = audio_io.write_audio(root / "sweeps" / "s.wav", sweep.program, FS,
-                                     subtype="FLOAT")
-    audio_io.write_json(audio_io.sidecar_path(sweep_wav), sweep.sidecar())
-    for i, d in enumerate(distances):
-        h = positioned_ir(HALL, FS, distance_m=d or 3.0, seed=20 + i)
-        y = virtual_take(sweep.program, FS, h, latency_s=0.01, noise_dbfs=-90.0, extra_s=0.3,
-                         seed=30 + i)
-        side = {"sweep_file": str(sweep_wav), "temperature_c": 18.0, "humidity_percent": 60.0}
-        if d is not None:
-            side["distance_m"] = d
-        session.save_take(root / "captures", "hall", f"p{i + 1}", y[np.newaxis, :], FS, side)
-    return root / "captures" / "hall"
+    """Takes whose sidecars carry the distance (none where it is None) and the air."""
+    hs = [positioned_ir(HALL, FS, distance_m=d or 3.0, seed=20 + i)
+          for i, d in enumerate(distances)]
+    sides = [{"temperature_c": 18.0, "humidity_percent": 60.0}
+             | ({} if d is None else {"distance_m": d}) for d in distances]
+    return room_folder(root, hs, sides, FS)
 
 
 def test_a_room_folder_whose_sidecars_carry_the_distances(tmp_path, capsys):

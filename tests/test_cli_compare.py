@@ -10,13 +10,12 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import numpy as np
 import pytest
+from _captures import room_folder
 
-from measure import audio_io, session
+from measure import audio_io
 from measure.cli import main
-from measure.sweep import SweepSpec, make_sweep
-from measure.virtual import OCTAVE_CENTERS_HZ, VirtualRoom, room_ir, virtual_take
+from measure.virtual import OCTAVE_CENTERS_HZ, VirtualRoom, room_ir
 
 FS = 48000
 RT_S = (1.0, 0.95, 0.9, 0.85, 0.8, 0.75, 0.7, 0.6)
@@ -106,19 +105,9 @@ def test_an_i3dl2_set_and_a_model_are_rendered_first(irs, tmp_path, capsys):
 
 
 def _room_folder(root: Path) -> Path:
-    spec = SweepSpec(fs=FS, f1_hz=20.0, f2_hz=24000.0, duration_s=1.0, gap_s=1.5,
-                     lead_in_s=0.2, level_dbfs=-12.0)
-    sweep = make_sweep(spec)
-    sweep_wav = audio_io.write_audio(root / "sweeps" / "s.wav", sweep.program, FS,
-                                     subtype="FLOAT")
-    audio_io.write_json(audio_io.sidecar_path(sweep_wav), sweep.sidecar())
-    for i, k in enumerate((0.97, 1.03)):
-        h = room_ir(_room([t * k for t in RT_S]), FS, seed=10 + i)
-        y = virtual_take(sweep.program, FS, h, latency_s=0.01, noise_dbfs=-95.0, extra_s=0.3,
-                         seed=20 + i)
-        session.save_take(root / "captures", "hall", f"p{i + 1}", y[np.newaxis, :], FS,
-                          {"sweep_file": str(sweep_wav)})
-    return root / "captures" / "hall"
+    hs = [room_ir(_room([t * k for t in RT_S]), FS, seed=10 + i)
+          for i, k in enumerate((0.97, 1.03))]
+    return room_folder(root, hs, [{}, {}], FS, noise_dbfs=-95.0)
 
 
 def test_a_room_folder_is_position_averaged(irs, tmp_path, capsys):
