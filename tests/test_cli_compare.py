@@ -127,6 +127,14 @@ def test_a_room_folder_is_position_averaged(irs, tmp_path, capsys):
     code, out, err = run(["compare", str(take), str(a), "--json"], capsys)
     assert code == 0, err
     assert json.loads(out)["a"]["kind"] == "capture"
+    # a take without its sidecar, with --sweep; the IR on the other side stays an IR
+    bare = tmp_path / "bare.wav"
+    bare.write_bytes(take.read_bytes())
+    code, out, err = run(["compare", str(bare), str(a), "--sweep",
+                          str(tmp_path / "sweeps" / "s.wav"), "--json"], capsys)
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["a"]["kind"] == "capture" and doc["b"]["kind"] == "impulse response"
 
 
 @pytest.mark.parametrize("make, match", [

@@ -96,7 +96,12 @@ def _measured(path: Path, sweep_opt: str | None) -> tuple[Any, int, str]:
     side = audio_io.sidecar_path(path)
     doc = audio_io.read_json(side) if side.exists() else {}
     audio = audio_io.read_audio(path)
-    if (isinstance(doc, dict) and doc.get("format") == TAKE_FORMAT) or sweep_opt is not None:
+    is_take = isinstance(doc, dict) and doc.get("format") == TAKE_FORMAT
+    if not is_take and sweep_opt is not None and doc == {}:
+        from measure.deconvolve import sweep_recording_evidence
+
+        is_take = sweep_recording_evidence(audio.x[0], audio.fs) is not None
+    if is_take:
         from measure.cli.cmd_attenuation import _resolve_sweep
         from measure.deconvolve import recover_ir
 
