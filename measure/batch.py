@@ -247,18 +247,19 @@ def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
         if on_take is not None:
             on_take(r)
 
-    if jobs > 1 and len(fresh) > 1:
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
-            for r in pool.map(_process_take, fresh):
-                finished(r)
-    else:
-        for job in fresh:
-            finished(_process_take(job))
-    if bar is not None:
-        bar.close()
-    results.sort(key=lambda r: (r["room"], r["position"], r["take"]))
-    rooms = [_room(root, name, [r for r in results if r["room"] == name], rates)
-             for name in sorted({r["room"] for r in results})]
+    pool = ProcessPoolExecutor(max_workers=jobs) if jobs > 1 else None
+    try:
+        for r in (pool.map(_process_take, fresh) if pool is not None and len(fresh) > 1
+                  else map(_process_take, fresh)):
+            finished(r)
+        if bar is not None:
+            bar.close()
+        results.sort(key=lambda r: (r["room"], r["position"], r["take"]))
+        rooms = [_room(root, name, [r for r in results if r["room"] == name], rates, pool)
+                 for name in sorted({r["room"] for r in results})]
+    finally:
+        if pool is not None:
+            pool.shutdown()
     level = {
         "format": LEVEL_FORMAT, "captures": str(captures), "settings": settings,
         "work": {"recovered": sum(1 for r in results if r.get("recovered")),
@@ -279,14 +280,13 @@ def _take_entry(r: dict[str, Any]) -> dict[str, Any]:
             "figures": r["figures"] if r.get("key") and not r.get("failed") else None}
 
 
-def _room(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[int]
-          ) -> dict[str, Any]:
+def _room(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[int],
+          pool: ProcessPoolExecutor | None = None) -> dict[str, Any]:
     """A room's average, model, curves and exports from its used takes."""
     import numpy as np
 
     from measure import audio_io
-    from measure.compare import average_sides, side_from_figures
-    from measure.parameters import analyze_ir
+    from measure.compare import average_sides, side_from_dict
 
     newest: dict[str, dict[str, Any]] = {}
     for r in takes:
@@ -306,13 +306,12 @@ def _room(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[in
         return entry
     rel = Path("rooms") / name
     hs, sides, docs = [], [], []
-    for r in used:
+    for r in used:  # the figures the take's own analysis wrote: nothing is analysed again
         a = audio_io.read_audio(root / r["ir"])
         h = a.x[0]
-        figs = analyze_ir(h, a.fs)
         hs.append((h, a.fs))
         docs.append(audio_io.read_json(root / r["figures"]))
-        sides.append(side_from_figures(figs, label=r["position"], kind="capture", h=h))
+        sides.append(side_from_dict(docs[-1], label=r["position"], kind="capture", h=h))
     fs = hs[0][1]
     avg = sides[0] if len(sides) == 1 else average_sides(sides, label=f"{name} "
                                                           f"({len(sides)} positions)")
@@ -320,21 +319,56 @@ def _room(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[in
     entry["average"] = avg.to_dict()
     best = int(np.argmax([d.get("peak_to_noise_ir_db") or -1e9 for d in docs]))
     key = hashlib.sha256("".join(r["key"] for r in used).encode()).hexdigest()
-    entry.update(_room_exports(root, rel, name, used[best], hs[best][0], fs, key, rates))
+    entry.update(_room_exports(root, rel, name, used[best], hs[best][0], fs, key, rates, pool))
     entry["attenuation"] = _room_attenuation(root, rel, used, hs, fs, entry)
     return entry
 
 
-def _room_exports(root: Path, rel: Path, name: str, take: dict[str, Any], h: Any, fs: int,
-                  key: str, rates: Sequence[int]) -> dict[str, Any]:
-    """Model, I3DL2 set, convolution response, renders and the listening pair of a room,
-    reused when ``key`` matches the earlier run's."""
+def _export_task(task: dict[str, Any]) -> dict[str, Any]:
+    """One of a room's exports (runs in a worker process): the convolution response, a
+    render at one rate, or the listening pair; returns its part of the room's entry."""
     from measure import audio_io
-    from measure.export import convolution_ir, loudness_matched
-    from measure.model.drysound import dry_demo_sound
-    from measure.model.fit import fit_with_i3dl2
     from measure.model.modelfile import model_from_dict
     from measure.model.render import auralize, default_seconds, render_model
+
+    root, rel, h, fs = task["root"], task["rel"], task["h"], task["fs"]
+    model = model_from_dict(task["model"])
+    if task["kind"] == "convolution":
+        from measure.export import convolution_ir
+
+        conv = convolution_ir(h, fs, audio_io.read_sweep(task["sweep"]).spec)
+        path = audio_io.write_audio(root / rel / "convolution-ir.wav", conv.h, fs,
+                                    subtype="FLOAT")
+        audio_io.write_json(audio_io.sidecar_path(path), conv.sidecar())
+        return {"convolution_ir": {"wav": str(rel / "convolution-ir.wav"), **conv.sidecar()}}
+    if task["kind"] == "render":
+        rate = task["rate"]
+        p = audio_io.write_audio(root / rel / f"model-{rate}.wav",
+                                 render_model(model, rate, default_seconds(model)), rate,
+                                 subtype="FLOAT")
+        return {"renders": {str(rate): str(p.relative_to(root))}}
+    from measure.export import loudness_matched
+    from measure.model.drysound import dry_demo_sound
+
+    dry = dry_demo_sound(fs)
+    pair = loudness_matched(auralize(dry, fs, h),
+                            auralize(dry, fs, render_model(model, fs, h.size / fs)), fs)
+    listening = {}
+    for which, x, stem in (("a", pair.a, "measured"), ("b", pair.b, "modelled")):
+        p = audio_io.write_audio(root / rel / "listen" / f"{stem}.wav", x, fs, subtype="FLOAT")
+        audio_io.write_json(audio_io.sidecar_path(p), pair.sidecar(which))
+        listening[stem] = {"wav": str(p.relative_to(root)), **pair.sidecar(which)}
+    return {"listening": listening}
+
+
+def _room_exports(root: Path, rel: Path, name: str, take: dict[str, Any], h: Any, fs: int,
+                  key: str, rates: Sequence[int], pool: ProcessPoolExecutor | None
+                  ) -> dict[str, Any]:
+    """Model, I3DL2 set, convolution response, renders and the listening pair of a room
+    (the exports in ``pool`` when there is one), reused when ``key`` matches the earlier
+    run's."""
+    from measure import audio_io
+    from measure.model.fit import fit_with_i3dl2
 
     model_path = root / rel / "model.json"
     stamp_path = root / rel / "exports.json"
@@ -343,30 +377,20 @@ def _room_exports(root: Path, rel: Path, name: str, take: dict[str, Any], h: Any
         return audio_io.read_json(stamp_path)["entry"]
     res, i3 = fit_with_i3dl2(h, fs, source={"room": name, "position": take["position"],
                                             "take": take["take"]})
-    model = res.model
-    audio_io.write_json(model_path, model.to_dict())
-    spec = audio_io.read_sweep(take["sweep"]).spec
+    audio_io.write_json(model_path, res.model.to_dict())
     entry: dict[str, Any] = {"model": str(rel / "model.json"),
                              "i3dl2": i3.to_dict().get("values"), "renders": {}}
-    conv = convolution_ir(h, fs, spec)
-    path = audio_io.write_audio(root / rel / "convolution-ir.wav", conv.h, fs, subtype="FLOAT")
-    audio_io.write_json(audio_io.sidecar_path(path), conv.sidecar())
-    entry["convolution_ir"] = {"wav": str(rel / "convolution-ir.wav"), **conv.sidecar()}
-    for rate in rates:
-        m = model_from_dict(model.to_dict())
-        p = audio_io.write_audio(root / rel / f"model-{rate}.wav",
-                                 render_model(m, rate, default_seconds(m)), rate,
-                                 subtype="FLOAT")
-        entry["renders"][str(rate)] = str(p.relative_to(root))
-    dry = dry_demo_sound(fs)
-    pair = loudness_matched(auralize(dry, fs, h), auralize(dry, fs, render_model(
-        model, fs, h.size / fs)), fs)
-    listening = {}
-    for which, x, stem in (("a", pair.a, "measured"), ("b", pair.b, "modelled")):
-        p = audio_io.write_audio(root / rel / "listen" / f"{stem}.wav", x, fs, subtype="FLOAT")
-        audio_io.write_json(audio_io.sidecar_path(p), pair.sidecar(which))
-        listening[stem] = {"wav": str(p.relative_to(root)), **pair.sidecar(which)}
-    entry["listening"] = listening
+    base = {"root": root, "rel": rel, "h": h, "fs": fs, "model": res.model.to_dict(),
+            "sweep": take["sweep"]}
+    tasks = [dict(base, kind="convolution"), dict(base, kind="listening")] + \
+        [dict(base, kind="render", rate=rate) for rate in rates]
+    parts = pool.map(_export_task, tasks) if pool is not None else map(_export_task, tasks)
+    for part in parts:
+        for k, v in part.items():
+            if k == "renders":
+                entry["renders"].update(v)
+            else:
+                entry[k] = v
     audio_io.write_json(stamp_path, {"batch_key": key, "entry": entry})
     return entry
 

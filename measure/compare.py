@@ -49,6 +49,7 @@ __all__ = [
     "GRADES",
     "RoomSide",
     "side_from_figures",
+    "side_from_dict",
     "average_sides",
     "measurement_grade",
     "Cell",
@@ -166,6 +167,37 @@ def side_from_figures(figures: Any, *, label: str, kind: str, h: np.ndarray | No
     hs = () if h is None else (np.array(check_signal(h, "h", ndim=(1,)), copy=True),)
     return RoomSide(label, kind, tuple(b.label for b in figures.bands), values,
                     check_fs(figures.fs), reasons=reasons, h=hs)
+
+
+def side_from_dict(doc: dict[str, Any], *, label: str, kind: str, h: np.ndarray | None = None
+                   ) -> RoomSide:
+    """A side from the JSON document of :meth:`measure.parameters.RoomFigures.to_dict` (the
+    ``measure analyze --json`` object), as :func:`side_from_figures` makes it from the figures.
+
+    Raises
+    ------
+    ParameterError
+        If the document holds no octave bands or no sample rate.
+    """
+    bands = doc.get("bands") if isinstance(doc, dict) else None
+    if not isinstance(bands, list) or not bands or "sample_rate" not in doc:
+        raise ParameterError("not a figures document of `measure analyze --json`; analyse the "
+                             "response again")
+    values: dict[tuple[str, str], float | None] = {}
+    reasons: dict[tuple[str, str], str] = {}
+    for b in bands:
+        for key, name, *_ in PARAMETERS:
+            v = b.get(key)
+            values[(b["label"], key)] = None if v is None else float(v)
+            if v is None:
+                reasons[(b["label"], key)] = _reason(b.get("flags", []), name)
+    sti = doc.get("sti")
+    values[("", "sti")] = None if sti is None else float(sti)
+    if sti is None:
+        reasons[("", "sti")] = "the STI could not be computed"
+    hs = () if h is None else (np.array(check_signal(h, "h", ndim=(1,)), copy=True),)
+    return RoomSide(label, kind, tuple(b["label"] for b in bands), values,
+                    check_fs(int(doc["sample_rate"])), reasons=reasons, h=hs)
 
 
 def measurement_grade(n_combinations: int) -> str | None:

@@ -151,3 +151,14 @@ def test_bad_comparisons_are_refused(base):
         compare_sides(a, a, threshold_jnd=0.0)
     with pytest.raises(ParameterError, match="octave"):
         side_from_figures(analyze_ir(h, FS, bands="third"), label="t", kind="impulse response")
+
+
+def test_a_side_from_the_figures_document_equals_the_side_from_the_figures(base):
+    from measure.compare import side_from_dict
+
+    h, a = base
+    b = side_from_dict(analyze_ir(h, FS).to_dict(), label="A", kind="impulse response", h=h)
+    assert b.bands == a.bands and b.fs == a.fs
+    assert b.values == pytest.approx(a.values)
+    with pytest.raises(ParameterError, match="figures document"):
+        side_from_dict({"bands": []}, label="x", kind="capture")
