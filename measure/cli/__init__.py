@@ -34,6 +34,7 @@ COMMANDS: tuple[str, ...] = (
     "measure.cli.cmd_compare",
     "measure.cli.cmd_predict",
     "measure.cli.cmd_batch",
+    "measure.cli.cmd_report",
     "measure.cli.cmd_fit",
     "measure.cli.cmd_render",
     "measure.cli.cmd_auralize",
