@@ -29,6 +29,7 @@ __all__ = [
     "write_audio",
     "read_json",
     "write_json",
+    "write_text",
     "dumps",
     "sidecar_path",
     "file_sha256",
@@ -232,7 +233,11 @@ def dumps(obj: Any) -> str:
 
 def write_json(path: str | os.PathLike[str], obj: Any) -> Path:
     """Write ``obj`` as indented JSON, atomically."""
-    text = dumps(obj) + "\n"
+    return write_text(path, dumps(obj) + "\n")
+
+
+def write_text(path: str | os.PathLike[str], text: str) -> Path:
+    """Write ``text`` as UTF-8, atomically."""
     target = Path(path)
     with atomic_writer(target) as fh:
         fh.write(text.encode("utf-8"))

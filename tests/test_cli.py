@@ -228,6 +228,18 @@ def test_demo_runs_end_to_end_without_hardware(demo_run):
     assert len(list((root / "plots").glob("*.png"))) == 2 * n + 1
 
 
+def test_demo_runs_the_batch_and_writes_the_report_and_the_summary(demo_run):
+    # Issue "A whole level at once", item 6
+    code, out, root = demo_run
+    assert code == 0
+    level = json.loads((root / "results" / "level.json").read_text())
+    assert level["format"] == "measure.level/1" and len(level["rooms"]) == 5
+    assert not level["left_out"]
+    html = (root / "report.html").read_text()
+    assert html.startswith("<!DOCTYPE html>") and html.count('class="room"') >= 5
+    assert (root / "summary.txt").read_text().rstrip("\n") == out.rstrip("\n")
+
+
 def test_demo_compares_each_room_with_its_model_and_description(demo_run):
     # Issue "Compare", item 5: each room against its fitted model and its room description, and
     # one audible difference on purpose. ISO 3382-1 Table A.1: 1 JND of T30 is 5 %; heavy carpet

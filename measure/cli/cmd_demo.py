@@ -107,8 +107,43 @@ def run(args: argparse.Namespace) -> int:
                                    modelled)
         rows.append((t, ir, doc, md, plots, verdict, comparisons))
     series = _series(root, captures, sweep, sweep_wav, sweep_sha256)
-    print(_summary(rows, root) + "\n\n" + _comparison_summary(rows) + "\n\n" + series)
+    level = _level(root, captures)
+    text = (_summary(rows, root) + "\n\n" + _comparison_summary(rows) + "\n\n" + series
+            + "\n\n" + level)
+    audio_io.write_text(root / "summary.txt", text + "\n")
+    print(text)
     return 0
+
+
+def _level(root: Path, captures: Path) -> str:
+    """The whole captures tree through `measure batch` into results/, and the report of it
+    (report.html, with its index of rooms); returns the lines for the summary."""
+    import os
+
+    from measure.batch import run_batch
+    from measure.cli._common import info, warn
+    from measure.errors import MissingDependencyError
+
+    info("  the whole level: `measure batch` over the captures tree, then the report ...")
+    result = run_batch(captures, root / "results", jobs=min(2, os.cpu_count() or 1))
+    work = result.level["work"]
+    lines = [f"The whole level (`measure batch {captures} --out {root / 'results'}`): "
+             f"{len(result.level['rooms'])} rooms, {work['recovered']} takes recovered, "
+             f"{len(result.level['left_out'])} left out; results/level.json holds each room's "
+             "average, model, I3DL2 set, curves and engine-ready files"]
+    try:
+        from measure.cli.cmd_report import _from_results
+        from measure.report.html import render_html, write_html
+
+        path = write_html(root / "report.html",
+                          render_html(_from_results(root / "results", True),
+                                      title="Larkspur Yard Depot (invented): the demo level"))
+        lines.append(f"The report: {path} (one self-contained page with an index of the rooms; "
+                     "open it in a browser, print it to PDF)")
+    except MissingDependencyError as err:
+        warn(f"no report: {err}")
+    lines.append(f"This summary is also in {root / 'summary.txt'}.")
+    return "\n".join(lines)
 
 
 def _comparisons(root: Path, stem: str, room: str, h, fs: int, figures, model_ir, modelled
@@ -288,7 +323,10 @@ def _summary(rows, root: Path) -> str:
               "  attenuation/  the canteen's distance and direction curves (the `measure "
               "attenuation --json` document)",
               "  comparisons/  each room measured against its model and its room description "
-              "(`measure compare --json`)"]
+              "(`measure compare --json`)",
+              "  results/   the whole level through `measure batch` (level.json, engine-ready "
+              "files per room)",
+              "  report.html  the report of the level (`measure report`)"]
     if plotted:
         lines.append("  plots/     decay curves per band and measured-vs-model charts (PNG)")
     lines.append(f"Per-band tables: measure analyze {root}/irs/<space>-<position>.wav")
