@@ -318,6 +318,10 @@ def _db(x: np.ndarray | float) -> np.ndarray | float:
         return 10.0 * np.log10(np.maximum(x, 1e-300))
 
 
+#: Energy below this fraction of the peak (−200 dB) is digital silence, not noise.
+SILENCE_RE_PEAK = 1e-20
+
+
 def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations: int = 5
             ) -> NoiseFloor:
     """Noise floor, truncation point and tail compensation (Lundeby et al. 1995).
@@ -361,6 +365,14 @@ def lundeby(h: np.ndarray, fs: int, *, interval_s: float = 0.010, max_iterations
     if not (peak_e > 0):
         return NoiseFloor(False, n, 0.0, 0.0, None, None, False, False, 0,
                           "the band holds no energy")
+    # A response that ends in digital silence (zero-padded, or cut and padded by an editor)
+    # has no noise after its end: the search runs over the part that holds sound, so that the
+    # noise estimate is not zero (what lies below −200 dB re the peak is silence; a float
+    # filter's ringing into such silence falls below it within milliseconds).
+    sound = np.flatnonzero(e > SILENCE_RE_PEAK * peak_e)
+    if sound[-1] + 1 < n:
+        e = e[: sound[-1] + 1]
+        n = e.shape[0]
     m0 = max(1, int(round(interval_s * fs)))
     tail_start = int(0.9 * n)
     noise = float(e[tail_start:].mean())

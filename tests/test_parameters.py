@@ -427,3 +427,37 @@ def test_a_small_loudspeaker_is_flagged_where_it_hardly_radiates():
     weak = [f for f in figs.band("63").flags if "the source is" in f]
     assert weak and int(re.search(r"is (\d+) dB weaker", weak[0]).group(1)) >= 20
     assert not any("the source is" in f for f in figs.band("1k").flags)
+
+
+@pytest.mark.parametrize("subtype", ["PCM_16", "FLOAT"])
+def test_a_response_ending_in_digital_silence_is_analysed_as_without_it(tmp_path, subtype):
+    # Issue "Never lose a take", a traceback: a real response followed by 0.5 s of exact zeros
+    # (16- or 32-bit) divided by a zero noise estimate. The zeros add no energy, so every
+    # figure must equal the unpadded response's (derived; 1 % for the quantised 16-bit file).
+    from measure.audio_io import read_audio, write_audio
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    fs = 48000
+    h = room_ir(DEMO_ROOMS[1], fs, seed=1)
+    h = 0.9 * h / np.max(np.abs(h))
+    write_audio(tmp_path / "a.wav", h, fs, subtype=subtype)
+    write_audio(tmp_path / "b.wav", np.concatenate([h, np.zeros(fs // 2)]), fs, subtype=subtype)
+    a = analyze_ir(read_audio(tmp_path / "a.wav").x[0], fs)
+    b = analyze_ir(read_audio(tmp_path / "b.wav").x[0], fs)
+    for ba, bb in zip(a.bands, b.bands, strict=True):
+        for key in ("t20_s", "t30_s", "edt_s"):
+            va, vb = getattr(ba, key), getattr(bb, key)
+            assert (va is None) == (vb is None), (ba.label, key)
+            if va is not None:
+                assert vb == pytest.approx(va, rel=0.01), (ba.label, key)
+
+
+def test_a_reversed_response_gives_figures_with_reasons_not_a_traceback():
+    # the same issue: a time-reversed response has no decay; every figure is null with a flag
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    fs = 48000
+    h = room_ir(DEMO_ROOMS[1], fs, seed=1)[::-1].copy()
+    figs = analyze_ir(h, fs)
+    b = figs.band("1k")
+    assert b.t30_s is None and b.flags
