@@ -418,7 +418,7 @@ def fit_shelf(f_hz: np.ndarray, ratio_db: np.ndarray) -> ShelfFit:
         return ShelfFit(th[0], th[1], math.exp(th[2]), 0.0).model_db(f)
 
     lo_r, hi_r = float(np.median(r[: r.size // 4 + 1])), float(np.median(r[-(r.size // 4 + 1):]))
-    x0 = [lo_r, hi_r - lo_r, float(np.median(lf))]
+    x0 = [lo_r, float(np.clip(hi_r - lo_r, -59.0, 59.0)), float(np.median(lf))]
     res = least_squares(lambda th: model(th) - r, x0, loss="soft_l1", f_scale=1.0,
                         bounds=([-np.inf, -60.0, lf[0] - 2.0], [np.inf, 60.0, lf[-1] + 2.0]))
     rms = float(np.sqrt(np.mean((model(res.x) - r) ** 2)))
@@ -523,6 +523,15 @@ def position_transfer(h: np.ndarray, h_ref: np.ndarray, fs: int, *, label: str =
     """
     fs = check_fs(fs)
     f_lo, f_hi = band_hz if band_hz is not None else _default_band(window_s, fs)
+    if band_hz is not None:
+        lowest = _default_band(window_s, fs)[0]
+        if not (0 < f_lo < f_hi <= 0.45 * fs):
+            raise ParameterError(f"the band {f_lo:g}-{f_hi:g} Hz must lie below 0.45 times the "
+                                 f"sample rate ({0.45 * fs:g} Hz); give a lower HI")
+        if window_s is not None and f_lo < lowest:
+            raise ParameterError(f"the band starts at {f_lo:g} Hz but the direct window "
+                                 f"resolves from {lowest:g} Hz (2/window); raise LO or give a "
+                                 "longer --window")
     grid = np.geomspace(f_lo, f_hi, max(int(24 * math.log2(f_hi / f_lo)), 16))
     s = direct_spectrum(h, fs, grid, window_s=window_s, fraction=fraction)
     s_ref = direct_spectrum(h_ref, fs, grid, window_s=window_s, fraction=fraction)
@@ -534,7 +543,8 @@ def position_transfer(h: np.ndarray, h_ref: np.ndarray, fs: int, *, label: str =
     octave_direct = {}
     for lab, fc in _OCTAVES:
         if fc * math.sqrt(2.0) < 0.49 * fs:
-            d_b = _octave_direct_db(h, fs, fc / math.sqrt(2.0), fc * math.sqrt(2.0))
+            d_b = _octave_direct_db(h, fs, fc / math.sqrt(2.0), fc * math.sqrt(2.0),
+                                    DEFAULT_WINDOW_S if window_s is None else window_s)
             if d_b is not None:
                 octave_direct[lab] = d_b
     drr = None if e_d is None or e_r is None else e_d - e_r
@@ -558,8 +568,8 @@ def room_in_window_db(h: np.ndarray, fs: int, f_grid_hz: np.ndarray, *,
     later than the peak (a gap before the first reflection, which makes the estimate high) and
     the window's own level already holds it (which makes it low). In a virtual hall of
     :mod:`measure.virtual` (critical distance 2.7 m, room sound from 1 ms after the direct
-    sound) it gave 1.6 and 2.5 dB where the gain read 0.6 and 1.1 dB high (8 and 12 m): an
-    upper size, about twice the truth.
+    sound) it gave 1.6 and 2.5 dB where the gain read 0.6 and 1.1 dB high (8 and 12 m); in
+    others 2.5 to 4 times the excess: an upper size, not a correction.
     """
     from measure.model._smoothing import smooth_power
 
@@ -580,11 +590,13 @@ def room_in_window_db(h: np.ndarray, fs: int, f_grid_hz: np.ndarray, *,
     return float(np.median(excess))
 
 
-def _octave_direct_db(h: np.ndarray, fs: int, f_lo: float, f_hi: float) -> float | None:
+def _octave_direct_db(h: np.ndarray, fs: int, f_lo: float, f_hi: float, window_s: float
+                      ) -> float | None:
     """Direct-sound energy in [f_lo, f_hi]: the direct window of the broadband response (the
-    same window as the spectra's), band-limited afterwards, so a slow band filter's ringing
+    spectra's window; the default one when they take the whole response, since directivity is
+    a property of the direct sound), band-limited afterwards, so a slow band filter's ringing
     cannot smear the room into it."""
-    _, a, b, _ = _direct_window(h, fs, DEFAULT_WINDOW_S)
+    _, a, b, _ = _direct_window(h, fs, window_s)
     seg = h[a:b]
     m = 1 << int(math.ceil(math.log2(max(8 * seg.size, int(4 * fs / f_lo)))))
     S = np.abs(np.fft.rfft(seg, m)) ** 2
@@ -643,12 +655,14 @@ class DistanceLaw:
     rms_inverse_db: float
     rms_power_db: float
 
-    def gain_db(self, d_m: np.ndarray) -> np.ndarray:
+    def gain_db(self, d_m: np.ndarray, *, clamp: bool = False) -> np.ndarray:
+        """The law's gain at ``d_m``; ``clamp`` holds the inverse-distance law at 0 dB below
+        the reference distance, as an engine's clamped law does (modeling.md §8.1)."""
         d = np.asarray(d_m, dtype=np.float64)
         if self.better == "power":
             return -20.0 * self.power_exponent * np.log10(d / self.reference_distance_m)
         return inverse_distance_gain_db(d, self.reference_distance_m, self.rolloff_factor,
-                                        clamp=False)
+                                        clamp=clamp)
 
     def to_dict(self) -> dict[str, Any]:
         return {"rolloff_factor": self.rolloff_factor,
@@ -734,9 +748,9 @@ class DistanceSeries:
             drr_v = None if drr is None else float(drr[0])
             out.append({
                 "distance_m": float(d),
-                "direct_gain_db": float(self.direct_law.gain_db(np.array([d]))[0]),
-                "reverberant_gain_db": (None if self.room_law is None else
-                                        float(self.room_law.gain_db(np.array([d]))[0])),
+                "direct_gain_db": float(self.direct_law.gain_db(np.array([d]), clamp=True)[0]),
+                "reverberant_gain_db": (None if self.room_law is None else float(
+                    self.room_law.gain_db(np.array([d]), clamp=True)[0])),
                 "drr_db": drr_v,
                 "wet_fraction": None if drr_v is None else 1.0 / (1.0 + 10.0 ** (drr_v / 10.0)),
                 "expected_lowpass_hz": expected_lowpass_hz(d - d_ref, f_lo, f_hi, **self.air)})
@@ -837,12 +851,17 @@ def distance_series(responses: Sequence[np.ndarray], fs: int, distances_m: Seque
         y = np.array([b for _, b in drr])
         b1, a0 = np.polyfit(x, y, 1)
         line = (float(a0), float(b1))
-        if b1 < 0:
-            critical = float(10.0 ** (-a0 / b1))
-            lo, hi = min(a for a, _ in drr), max(a for a, _ in drr)
+        lo, hi = min(a for a, _ in drr), max(a for a, _ in drr)
+        lg_rc = -a0 / b1 if b1 < 0 else math.inf
+        if b1 < 0 and math.log10(lo) - 2.0 <= lg_rc <= math.log10(hi) + 2.0:
+            critical = float(10.0 ** lg_rc)
             if not lo / 4 <= critical <= hi * 4:
                 notes.append(f"the critical distance {critical:.2g} m lies far outside the "
                              f"measured {lo:g}-{hi:g} m: extrapolated")
+        elif b1 < 0:
+            notes.append(f"the direct-to-reverberant ratio falls too little over {lo:g}-{hi:g} m "
+                         "to place the critical distance within a hundredfold of the series; "
+                         "none is given")
         else:
             notes.append("the direct-to-reverberant ratio does not fall with distance here, so "
                          "no critical distance is given")

@@ -28,7 +28,8 @@ Spectral distance (modeling.md §7.3): per octave, the RMS over that octave of t
 of the two 1/3-octave-smoothed power spectra, each normalised to its total energy (so a pure
 gain does not count). Energy decay relief (modeling.md §7.2, Jot 1992): per octave, the mean
 and largest |ΔEDR| in dB over the time-frequency cells within the top 60 dB of each side's
-relief, both onset-aligned and energy-normalised.
+relief, both onset-aligned and each band normalised to its own start; for a position
+average, of its first position.
 """
 
 from __future__ import annotations
@@ -313,8 +314,11 @@ class Comparison:
         return max(cells, key=lambda c: abs(c.jnd)) if cells else None
 
     def exceeds(self, n_jnd: float) -> bool:
-        """Whether any compared cell differs by more than ``n_jnd`` JNDs."""
-        return any(c.jnd is not None and abs(c.jnd) > n_jnd for c in self.cells)
+        """Whether any compared cell differs by more than ``n_jnd`` JNDs and is not inside the
+        spread over positions (the verdicts' rule, at ``n_jnd``)."""
+        return any(c.jnd is not None and abs(c.jnd) > n_jnd
+                   and not (c.spread is not None and abs(c.difference) <= c.spread)
+                   for c in self.cells)
 
     def summary(self) -> dict[str, Any]:
         compared = [c for c in self.cells if c.jnd is not None]
@@ -328,8 +332,8 @@ class Comparison:
                                                      if self.a.is_average or self.b.is_average
                                                      else ""))
         else:
-            where = ", ".join(f"{c.parameter} {c.band_hz} Hz".replace("  Hz", "")
-                              if c.band_hz else c.parameter for c in audible[:6])
+            where = ", ".join(f"{c.parameter} {c.band_hz} Hz" if c.band_hz else c.parameter
+                              for c in audible[:6])
             more = f" and {len(audible) - 6} more" if len(audible) > 6 else ""
             line = (f"audible difference in {len(audible)} of {len(compared)} compared figures: "
                     f"{where}{more}")
@@ -382,8 +386,8 @@ def compare_sides(a: RoomSide, b: RoomSide, *, threshold_jnd: float = 1.0) -> Co
     ParameterError
         If ``threshold_jnd`` is not positive, or the sides share no octave band.
     """
-    if not (threshold_jnd > 0 and math.isfinite(threshold_jnd)):
-        raise ParameterError(f"the JND threshold {threshold_jnd} must be a positive number")
+    if not (threshold_jnd >= 0 and math.isfinite(threshold_jnd)):
+        raise ParameterError(f"the JND threshold {threshold_jnd} must be a number >= 0")
     bands = [x for x in a.bands if x in b.bands]
     if not bands:
         raise ParameterError("the two sides share no octave band; compare responses at "

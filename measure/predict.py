@@ -569,6 +569,9 @@ def room_from_dict(doc: Mapping[str, Any]) -> RoomDescription:
         _refuse_unknown(e, _EXTRA_KEYS, f"[[extra]] #{i + 1}")
         ename = e.get("name", f"extra #{i + 1}")
         area = e.get("area_m2")
+        if area is not None and not isinstance(area, (list, tuple)):
+            raise ParameterError(f"[[extra]] {ename!r}: area_m2 = {area!r} is not a list; give "
+                                 "6 or 8 equivalent absorption areas in m², one per octave")
         extras.append(ExtraAbsorption(
             str(ename), area_m2=None if area is None else tuple(area),
             material=e.get("material"), surface_m2=e.get("surface_m2")))

@@ -186,6 +186,9 @@ def test_the_rolloff_goes_into_the_models_reverb_set(ir_files, tmp_path, capsys)
     (["--distances", "1,2,4"], "one per file"),
     (["--distances", "1,2,4,8", "--reference", "3"], "reference"),
     (["--distances", "1,2,4,8", "--window", "0"], "--window"),
+    (["--distances", "1,2,4,8", "--rate", "0"], "--rate"),
+    (["--distances", "1,2,4,8", "--band", "30000,40000"], "0.45 times the sample rate"),
+    (["--distances", "1,2,4,8", "--band", "100,10000"], "resolves from 500 Hz"),
     ([], "give --distances or --angles"),
 ])
 def test_bad_series_are_one_error_line(ir_files, capsys, argv, match):

@@ -154,3 +154,17 @@ def test_bad_inputs_are_one_error_line(irs, tmp_path, capsys, make, match):
     lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error: ") and match in lines[0], err
     assert sorted(tmp_path.iterdir()) == before  # nothing written
+
+
+def test_fail_above_takes_its_verdicts_at_the_threshold(irs, tmp_path, capsys):
+    # the exit status and the verdicts agree: at --fail-above 5 the 2-JND differences are
+    # "within 5 JND", and exit 0; a preset whose i3dl2 entry is not a table is one error line
+    a, b = irs
+    code, out, _ = run(["compare", str(a), str(b), "--fail-above", "5", "--json"], capsys)
+    doc = json.loads(out)
+    assert code == 0 and doc["summary"]["n_audible"] == 0
+    assert all(c["verdict"] in ("within 5 JND", "not compared") for c in doc["cells"])
+    bad = tmp_path / "odd.json"
+    bad.write_text('{"i3dl2": "x"}')
+    code, out, err = run(["compare", str(a), str(bad)], capsys)
+    assert code == 2 and err.startswith("error: ") and len(err.strip().splitlines()) == 1

@@ -148,7 +148,7 @@ def test_bad_comparisons_are_refused(base):
     with pytest.raises(ParameterError, match="two positions"):
         average_sides([a], label="x")
     with pytest.raises(ParameterError, match="threshold"):
-        compare_sides(a, a, threshold_jnd=0.0)
+        compare_sides(a, a, threshold_jnd=-1.0)
     with pytest.raises(ParameterError, match="octave"):
         side_from_figures(analyze_ir(h, FS, bands="third"), label="t", kind="impulse response")
 

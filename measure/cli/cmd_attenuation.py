@@ -180,6 +180,8 @@ def run(args: argparse.Namespace) -> int:
     if band is not None and (len(band) != 2 or not 0 < band[0] < band[1]):
         raise ParameterError(f"--band {args.band!r} must be two frequencies LO,HI in Hz, "
                              "0 < LO < HI")
+    if args.rate is not None and not 8000 <= args.rate <= 384000:
+        raise ParameterError(f"--rate {args.rate} must be a sample rate from 8000 to 384000 Hz")
     if args.fraction < 1:
         raise ParameterError(f"--fraction {args.fraction} must be a whole number >= 1")
     if (args.model is None) != (args.model_out is None):

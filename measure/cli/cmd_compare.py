@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import math
 from pathlib import Path
 from typing import Any
@@ -23,8 +24,9 @@ predicted first: its format is in the README); or a room folder of captures
 (position-averaged per ISO 3382-2: mean, spread, count and grade; a difference smaller than the
 spread over positions is not called audible).
 
---fail-above N: exit 1 when any compared figure differs by more than N JNDs (0 when all are
-within), for a build pipeline; 2 on bad input."""
+--fail-above N: the verdicts are taken at N JNDs; exit 1 when any compared figure differs by
+more than N JNDs (and not within the spread over positions), or when nothing could be
+compared; 0 when all are within; 2 on bad input."""
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -64,8 +66,9 @@ def _i3dl2_values(doc: Any) -> dict[str, float] | None:
     """The twelve properties of an I3DL2 set in any of the forms the model file holds."""
     from measure.model.i3dl2 import I3DL2_RANGES
 
+    nested = doc.get("i3dl2") if isinstance(doc, dict) else None
     for cand in (doc, doc.get("values") if isinstance(doc, dict) else None,
-                 (doc.get("i3dl2") or {}).get("values") if isinstance(doc, dict) else None):
+                 nested.get("values") if isinstance(nested, dict) else None):
         if isinstance(cand, dict) and set(I3DL2_RANGES) <= set(cand):
             return {k: cand[k] for k in I3DL2_RANGES}
     return None
@@ -137,7 +140,7 @@ def _side(path: Path, sweep_opt: str | None, rate: int | None) -> Any:
         sides = [side_from_figures(analyze_ir(h, got["fs"]), label=lab, kind="capture", h=h)
                  for h, lab in zip(got["h"], got["labels"], strict=True)]
         if len(sides) == 1:
-            return dataclass_replace(sides[0], label=f"{path.name}/{got['labels'][0]}")
+            return dataclasses.replace(sides[0], label=f"{path.name}/{got['labels'][0]}")
         return average_sides(sides, label=f"{path.name} ({len(sides)} positions)")
     if kind == "audio":
         h, fs, what = _measured(path, sweep_opt)
@@ -150,7 +153,7 @@ def _side(path: Path, sweep_opt: str | None, rate: int | None) -> Any:
         pred = predict(load_room(path), rate)
         side = side_from_figures(analyze_ir(pred.h, rate), label=path.name,
                                  kind="room description", h=pred.h)
-        return dataclass_replace(side, notes=tuple(pred.notes))
+        return dataclasses.replace(side, notes=tuple(pred.notes))
     doc = audio_io.read_json(path, what="model or I3DL2 file")
     from measure.model.modelfile import MODEL_FORMAT
 
@@ -174,14 +177,8 @@ def _side(path: Path, sweep_opt: str | None, rate: int | None) -> Any:
                              h=h)
 
 
-def dataclass_replace(obj: Any, **changes: Any) -> Any:
-    import dataclasses
-
-    return dataclasses.replace(obj, **changes)
-
-
 def run(args: argparse.Namespace) -> int:
-    from measure.cli._common import print_json
+    from measure.cli._common import print_json, warn
     from measure.compare import compare_sides
     from measure.errors import ParameterError
 
@@ -203,13 +200,18 @@ def run(args: argparse.Namespace) -> int:
     if a.fs != b.fs:
         raise ParameterError(f"A is at {a.fs} Hz and B at {b.fs} Hz; compare responses at one "
                              "rate (models, presets and descriptions render at --rate)")
-    cmp = compare_sides(a, b)
+    cmp = compare_sides(a, b, threshold_jnd=1.0 if args.fail_above is None else args.fail_above)
     if args.json:
         print_json(cmp.to_dict())
     else:
         print(format_report(cmp.to_dict()))
-    if args.fail_above is not None and cmp.exceeds(args.fail_above):
-        return 1
+    if args.fail_above is not None:
+        if cmp.summary()["n_compared"] == 0:
+            warn("nothing could be compared (no figure exists on both sides): --fail-above "
+                 "fails")
+            return 1
+        if cmp.exceeds(args.fail_above):
+            return 1
     return 0
 
 
