@@ -41,7 +41,7 @@ import hashlib
 import json
 import os
 import sys
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -63,7 +63,9 @@ class BatchResult:
 
     @property
     def complete(self) -> bool:
-        return not self.level["left_out"]
+        """Every take used and every room's work done."""
+        return not self.level["left_out"] and not any(r.get("failed")
+                                                       for r in self.level["rooms"])
 
 
 def _sha(path: Path) -> str:
@@ -90,6 +92,11 @@ def _sweep_for(side: dict[str, Any], room_folder: Path) -> Path | None:
     return _resolve_sweep(side.get("sweep_file"), room_folder)
 
 
+#: What a take's result carries over from its job.
+_CARRIED = ("room", "position", "take", "wav", "sidecar", "ir", "figures", "key", "sweep",
+            "side")
+
+
 def _process_take(job: dict[str, Any]) -> dict[str, Any]:
     """Recover, analyse and judge one take (runs in a worker process). Never raises: a failure
     comes back as ``used`` False with the reason."""
@@ -98,11 +105,10 @@ def _process_take(job: dict[str, Any]) -> dict[str, Any]:
     from measure.errors import MeasureError
     from measure.parameters import analyze_ir
 
-    out = {k: job[k] for k in ("room", "position", "take", "wav", "ir", "figures", "key",
-                               "sweep")}
+    out = {k: job[k] for k in _CARRIED}
     try:
         sweep = audio_io.read_sweep(job["sweep"])
-        audio = audio_io.read_audio(job["wav"])
+        audio = audio_io.read_audio(job["root"] / job["wav"])
         if audio.fs != sweep.fs:
             raise MeasureError(f"the take is at {audio.fs} Hz but its sweep at {sweep.fs} Hz")
         loop = job["side"].get("loopback_channel")
@@ -115,7 +121,8 @@ def _process_take(job: dict[str, Any]) -> dict[str, Any]:
                    peak_to_noise_ir_db=ir.peak_to_noise_db[0], n_clipped=ir.n_clipped,
                    warnings=list(ir.warnings))
         audio_io.write_ir(job["root"] / job["ir"], ir, sweep=sweep,
-                          sources={"capture": job["wav"], "batch_key": job["key"]})
+                          sources={"capture": str((job["root"] / job["wav"]).resolve()),
+                                   "batch_key": job["key"]})
         audio_io.write_json(job["root"] / job["figures"], doc)
         out.update(_judge(doc, job["side"]))
     except MeasureError as err:
@@ -154,8 +161,7 @@ def _reuse(job: dict[str, Any]) -> dict[str, Any] | None:
         return None
     if doc.get("batch_key") != job["key"]:
         return None
-    out = {k: job[k] for k in ("room", "position", "take", "wav", "ir", "figures", "key",
-                               "sweep")}
+    out = {k: job[k] for k in _CARRIED}
     if "failed" in doc:
         out.update(used=False, reason=doc["failed"], failed=True, recovered=False)
         return out
@@ -173,10 +179,11 @@ def _jobs(captures: Path, root: Path, settings: dict[str, Any]) -> tuple[list[di
     jobs, bad = [], []
     for t in session.list_takes(captures):
         rel = Path("rooms") / t.room
-        base = {"room": t.room, "position": t.position, "take": t.number, "wav": str(t.wav),
-                "ir": str(rel / "irs" / f"{t.position}-take{t.number}.wav"),
-                "figures": str(rel / "figures" / f"{t.position}-take{t.number}.json"),
-                "key": None}
+        base = {"room": t.room, "position": t.position, "take": t.number,
+                "wav": _relative(t.wav, root), "sidecar": _relative(t.json, root),
+                "ir": str(rel / "irs" / f"{t.wav.stem}.wav"),
+                "figures": str(rel / "figures" / f"{t.wav.stem}.json"), "key": None,
+                "side": {}, "sweep": None}
         try:
             side = audio_io.read_json(t.json)
             sweep = _sweep_for(side, t.wav.parent)
@@ -187,8 +194,13 @@ def _jobs(captures: Path, root: Path, settings: dict[str, Any]) -> tuple[list[di
         except Exception as err:  # noqa: BLE001 - reported, the rest completes
             bad.append(dict(base, used=False, reason=f"cannot be used: {err}", recovered=False))
             continue
-        jobs.append(dict(base, side=side, sweep=str(sweep), key=key, root=root))
+        jobs.append(dict(base, side=side, sweep=str(Path(sweep).resolve()), key=key, root=root))
     return jobs, bad
+
+
+def _relative(path: Path, root: Path) -> str:
+    """``path`` relative to the results folder (level.json's paths are)."""
+    return os.path.relpath(Path(path).resolve(), Path(root).resolve())
 
 
 def _progress(total: int) -> Any:
@@ -202,8 +214,7 @@ def _progress(total: int) -> Any:
 
 
 def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
-              jobs: int = 1, rates: Sequence[int] = ENGINE_RATES,
-              on_take: Callable[[dict[str, Any]], None] | None = None) -> BatchResult:
+              jobs: int = 1, rates: Sequence[int] = ENGINE_RATES) -> BatchResult:
     """Process a captures tree into ``out`` (module notes).
 
     Raises
@@ -223,12 +234,22 @@ def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
     if root.resolve() == captures.resolve() or captures.resolve() in root.resolve().parents:
         raise ParameterError("the results folder must not lie inside the captures tree; give "
                              "--out elsewhere")
-    settings = {"bands": "octave", "rates": list(rates)}
+    if root.exists() and not root.is_dir():
+        raise ParameterError(f"--out {root} is a file; give a folder for the results")
+    # what a take's work depends on (the render rates only touch the rooms' exports)
+    settings = {"bands": "octave"}
     todo, results = _jobs(captures, root, settings)
     if not todo and not results:
         raise ParameterError(f"{captures} holds no takes (ROOM/POSITION-takeN.wav with its "
                              ".json); give a captures tree as `measure capture` writes it")
-    root.mkdir(parents=True, exist_ok=True)
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        from measure.errors import AudioFileError
+
+        raise AudioFileError(f"cannot create the results folder {root} "
+                             f"({err.strerror or err}); give --out a folder you may write to"
+                             ) from err
     fresh = []
     for job in todo:
         done = _reuse(job)
@@ -244,8 +265,6 @@ def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
         results.append(r)
         if bar is not None:
             bar.update(1)
-        if on_take is not None:
-            on_take(r)
 
     pool = ProcessPoolExecutor(max_workers=jobs) if jobs > 1 else None
     try:
@@ -255,13 +274,14 @@ def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
         if bar is not None:
             bar.close()
         results.sort(key=lambda r: (r["room"], r["position"], r["take"]))
-        rooms = [_room(root, name, [r for r in results if r["room"] == name], rates, pool)
-                 for name in sorted({r["room"] for r in results})]
+        rooms = [_room_or_note(root, name, [r for r in results if r["room"] == name], rates,
+                               pool) for name in sorted({r["room"] for r in results})]
     finally:
         if pool is not None:
             pool.shutdown()
     level = {
-        "format": LEVEL_FORMAT, "captures": str(captures), "settings": settings,
+        "format": LEVEL_FORMAT, "captures": _relative(captures, root),
+        "settings": dict(settings, rates=list(rates)),
         "work": {"recovered": sum(1 for r in results if r.get("recovered")),
                  "reused": sum(1 for r in results if not r.get("recovered") and r.get("key")
                                and not r.get("failed")),
@@ -275,9 +295,24 @@ def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
 
 def _take_entry(r: dict[str, Any]) -> dict[str, Any]:
     return {"room": r["room"], "position": r["position"], "take": r["take"], "wav": r["wav"],
-            "used": r["used"], "reason": r["reason"],
+            "sidecar": r.get("sidecar"), "used": r["used"], "reason": r["reason"],
             "ir": r["ir"] if r.get("key") and not r.get("failed") else None,
             "figures": r["figures"] if r.get("key") and not r.get("failed") else None}
+
+
+def _room_or_note(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[int],
+                  pool: ProcessPoolExecutor | None) -> dict[str, Any]:
+    """:func:`_room`, or, when the room's own work fails (a model that cannot be fitted, a
+    stored response gone bad), its takes with the reason: the rest of the level completes."""
+    from measure.errors import MeasureError
+
+    try:
+        return _room(root, name, takes, rates, pool)
+    except MeasureError as err:
+        return {"name": name, "takes": [_take_entry(r) for r in takes], "average": None,
+                "model": None, "i3dl2": None, "attenuation": None, "convolution_ir": None,
+                "renders": {}, "listening": None, "failed": True,
+                "notes": [f"the room's average, model and exports failed: {err}"]}
 
 
 def _room(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[int],
@@ -313,12 +348,16 @@ def _room(root: Path, name: str, takes: list[dict[str, Any]], rates: Sequence[in
         docs.append(audio_io.read_json(root / r["figures"]))
         sides.append(side_from_dict(docs[-1], label=r["position"], kind="capture", h=h))
     fs = hs[0][1]
-    avg = sides[0] if len(sides) == 1 else average_sides(sides, label=f"{name} "
-                                                          f"({len(sides)} positions)")
-    audio_io.write_json(root / rel / "average.json", avg.to_dict())
-    entry["average"] = avg.to_dict()
+    if len(sides) >= 2:
+        avg = average_sides(sides, label=f"{name} ({len(sides)} positions)")
+        audio_io.write_json(root / rel / "average.json", avg.to_dict())
+        entry["average"] = avg.to_dict()
+    else:
+        entry["notes"].append("one position only: no ISO 3382-2 position average (it needs "
+                              "two source-receiver combinations or more)")
     best = int(np.argmax([d.get("peak_to_noise_ir_db") or -1e9 for d in docs]))
-    key = hashlib.sha256("".join(r["key"] for r in used).encode()).hexdigest()
+    key = hashlib.sha256(("".join(r["key"] for r in used) + repr(list(rates))).encode()
+                         ).hexdigest()
     entry.update(_room_exports(root, rel, name, used[best], hs[best][0], fs, key, rates, pool))
     entry["attenuation"] = _room_attenuation(root, rel, used, hs, fs, entry)
     return entry
@@ -405,7 +444,7 @@ def _room_attenuation(root: Path, rel: Path, used: list[dict[str, Any]], hs: lis
     def num(v: Any) -> float | None:
         return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else None
 
-    sides = [audio_io.read_json(Path(r["wav"]).with_suffix(".json")) for r in used]
+    sides = [r["side"] for r in used]
     dist = [num(s.get("distance_m")) for s in sides]
     ang = [num(s.get("angle_deg")) for s in sides]
     labelled = [i for i in range(len(used)) if dist[i] is not None or ang[i] is not None]

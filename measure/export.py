@@ -211,6 +211,10 @@ def loudness_matched(a: np.ndarray, b: np.ndarray, fs: int, *, peak_dbfs: float 
     fs = check_fs(fs)
     a = check_signal(a, "a", ndim=(1,))
     b = check_signal(b, "b", ndim=(1,))
+    if min(a.size, b.size) < int(0.4 * fs) + 1:
+        raise ParameterError("a signal of the pair is shorter than 400 ms, the BS.1770 gating "
+                             "block, so its loudness cannot be measured; give sound of at "
+                             "least a second")
     la, lb = integrated_loudness_lufs(a, fs), integrated_loudness_lufs(b, fs)
     if not (math.isfinite(la) and math.isfinite(lb)):
         raise ParameterError("a signal of the pair is silent or shorter than 400 ms, so its "

@@ -56,6 +56,11 @@ def test_a_level_with_a_corrupt_and_a_clipped_take(tree, tmp_path_factory, capsy
     assert code == 1, err  # some takes left out
     level = json.loads((out_dir / "level.json").read_text())
     assert level["format"] == "measure.level/1"
+    # paths relative to the results folder (measure.batch notes)
+    assert not Path(level["captures"]).is_absolute()
+    for room in level["rooms"]:
+        for t in room["takes"]:
+            assert not Path(t["wav"]).is_absolute() and (out_dir / t["wav"]).exists()
     left = {(r["room"], r["position"]): r["reason"] for r in level["left_out"]}
     assert set(left) == {("hall", "p2"), ("office", "p3")}
     assert "cannot" in left[("hall", "p2")] and "clipped" in left[("office", "p3")]
@@ -80,7 +85,8 @@ def test_a_level_with_a_corrupt_and_a_clipped_take(tree, tmp_path_factory, capsy
         assert float(np.max(np.abs(conv.x))) == pytest.approx(10 ** (-1 / 20), rel=1e-6)
         assert room["convolution_ir"]["bend_above_2f1_db"] <= 0.5
         m, o = room["listening"]["measured"], room["listening"]["modelled"]
-        assert abs(m["loudness_lufs"] - o["loudness_lufs"]) <= 0.2  # BS.1770, the issue's 0.2 LU
+        # BS.1770 (pyloudnorm): the issue allows 0.2 LU; matching by gain gives rounding only
+        assert abs(m["loudness_lufs"] - o["loudness_lufs"]) <= 1e-6
         assert max(m["peak_dbfs"], o["peak_dbfs"]) <= -1.0 + 1e-9
     # a rerun with nothing changed does no recovery work
     code, _, err = run(["batch", str(tree / "captures"), "--out", str(out_dir)], capsys)
@@ -102,3 +108,30 @@ def test_bad_batches_are_one_error_line(tmp_path, capsys):
     code, out, err = run(["batch", str(tmp_path), "--out", str(tmp_path / "empty" / "r")],
                          capsys)
     assert code == 2 and "inside the captures tree" in err
+
+
+def test_a_rerun_redoes_exactly_what_changed(tree, tmp_path, capsys):
+    # resumability by content: an edited sidecar re-recovers that take only; a new take of a
+    # position supersedes the older one
+    import shutil
+
+    captures = tmp_path / "captures"
+    shutil.copytree(tree / "captures", captures)
+    shutil.copytree(tree / "sweeps", tmp_path / "sweeps")
+    out_dir = tmp_path / "results"
+    run(["batch", str(captures), "--out", str(out_dir)], capsys)
+    side = captures / "stairs" / "p1-take1.json"
+    doc = json.loads(side.read_text())
+    doc["notes"] = "edited after the session"
+    side.write_text(json.dumps(doc))
+    run(["batch", str(captures), "--out", str(out_dir)], capsys)
+    level = json.loads((out_dir / "level.json").read_text())
+    assert level["work"] == {"recovered": 1, "reused": 10, "failed": 1}
+    for ext in (".wav", ".json"):
+        shutil.copy(captures / "stairs" / f"p2-take1{ext}", captures / "stairs" / f"p2-take2{ext}")
+    run(["batch", str(captures), "--out", str(out_dir)], capsys)
+    level = json.loads((out_dir / "level.json").read_text())
+    assert level["work"]["recovered"] == 1
+    stairs = next(r for r in level["rooms"] if r["name"] == "stairs")
+    old = next(t for t in stairs["takes"] if t["position"] == "p2" and t["take"] == 1)
+    assert not old["used"] and "superseded by take 2" in old["reason"]

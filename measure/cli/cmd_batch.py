@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from pathlib import Path
 
 NAME = "batch"
 HELP = "process a whole captures tree: every take, each room's average, model and exports"
@@ -45,6 +46,9 @@ def run(args: argparse.Namespace) -> int:
     level = result.level
     for r in level["left_out"]:
         warn(f"{r['room']}/{r['position']} take {r['take']} left out: {r['reason']}")
+    for room in level["rooms"]:
+        for note in room["notes"] if room.get("failed") else []:
+            warn(f"{room['name']}: {note}")
     work = level["work"]
     info(f"wrote {result.path}: {len(level['rooms'])} rooms, {work['recovered']} takes "
          f"recovered, {work['reused']} unchanged and reused, {work['failed']} failed, "
@@ -55,8 +59,14 @@ def run(args: argparse.Namespace) -> int:
         for room in level["rooms"]:
             avg = room["average"] or {}
             grade = avg.get("grade")
-            n = avg.get("n_positions") or (1 if avg else 0)
+            n = avg.get("n_positions") or sum(1 for t in room["takes"] if t["used"])
             t = ((avg.get("bands") or {}).get("1k") or {}).get("t30_s")
+            if not avg and n == 1:
+                from measure import audio_io
+
+                one = next(t for t in room["takes"] if t["used"])
+                doc = audio_io.read_json(Path(args.out) / one["figures"], what="figures file")
+                t = next((b["t30_s"] for b in doc["bands"] if b["label"] == "1k"), None)
             print(f"{room['name']:<16} {n} position{'s' if n != 1 else ''}"
                   f"{f' ({grade} grade)' if grade else ''}; T30 at 1 kHz "
                   f"{'—' if t is None else f'{t:.2f} s'}"

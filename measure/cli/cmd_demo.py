@@ -8,10 +8,12 @@ from pathlib import Path
 NAME = "demo"
 HELP = "run the whole job on the built-in demo building (no audio hardware needed)"
 DESCRIPTION = """\
-Measure the three spaces of an invented building with virtual equipment (a laptop playing a
-sweep, a USB microphone with its own clock): write the sweep, the raw takes, the recovered
-impulse responses and the room figures, and print a summary. Everything goes into one folder
-(measure-demo, or measure-demo-2, ... if it exists; or --out DIR)."""
+Measure the spaces of an invented building with virtual equipment (a laptop playing a sweep,
+a USB microphone with its own clock): write the sweep, the raw takes, the recovered impulse
+responses, the room figures, the fitted models, the comparisons with each room's model and
+description, a distance and direction series in the canteen, the whole level through `measure
+batch` and its report, and print a summary (also written to summary.txt). Everything goes
+into one folder (measure-demo, or measure-demo-2, ... if it exists; or --out DIR)."""
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:

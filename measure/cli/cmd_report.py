@@ -28,9 +28,6 @@ The images are embedded (PNG data URIs) and the style is inline: the file makes 
 request and needs no script. It is written atomically; on bad input nothing is written and the
 exit status is 2."""
 
-LEVEL_FORMAT = "measure.level/1"
-
-
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("input", metavar="INPUT",
                    help="IR.wav, CAPTURE.wav (with --sweep if its sidecar names none), a room "
@@ -82,6 +79,7 @@ def _from_room_folder(folder: Path, sweep: str | None, fit: bool) -> Any:
 def _from_results(root: Path, fit: bool) -> list[Any]:
     """One section per room of a results folder (``level.json``, measure.level/1)."""
     from measure import audio_io
+    from measure.batch import LEVEL_FORMAT
     from measure.errors import AudioFileError
     from measure.report.html import room_section
 
@@ -117,6 +115,9 @@ def _from_results(root: Path, fit: bool) -> list[Any]:
                 fs, h = audio.fs, audio.x[0]
                 sc = audio_io.sidecar_path(ir)
                 side = audio_io.read_json(sc) if sc.exists() else None
+            take_side = root / t["sidecar"] if isinstance(t.get("sidecar"), str) else None
+            if take_side is not None and take_side.exists():  # the conditions at capture
+                side = audio_io.read_json(take_side)
             elif is_used:
                 raise AudioFileError(f"room {name!r}: the response {ir} of a used take is "
                                      "missing; run `measure batch` again")
@@ -131,9 +132,7 @@ def _from_results(root: Path, fit: bool) -> list[Any]:
             used.append(is_used and h is not None)
             reasons.append(t.get("reason"))
             docs.append(doc if isinstance(doc, dict) else None)
-        if fs is None:
-            raise AudioFileError(f"room {name!r} in {root / 'level.json'} has no response file; "
-                                 "run `measure batch` again")
+        fs = 0 if fs is None else fs  # a room with no response: listed with its reasons
         model = None
         if isinstance(room.get("model"), str) and (root / room["model"]).exists():
             from measure.model.modelfile import model_from_dict

@@ -408,9 +408,10 @@ def room_section(name: str, responses: Sequence[np.ndarray | None], fs: int, *,
                           "reason": reasons[i], "conditions": conditions(sidecars[i]),
                           "figures": doc})
     usable = [i for i in range(n) if used[i] and analysed[i] is not None]
-    if not usable:
-        raise ParameterError(f"room {name!r}: no position has a usable impulse response; "
-                             "measure at least one position")
+    if not usable:  # listed with the reasons, so the level's report still has every room
+        return RoomSection(name, source, fs, tuple(positions), None, None, None, attenuation,
+                           (), ("no position of this room has a usable impulse response; the "
+                                "takes and why they were left out are listed below",))
     first = usable[0]
     sides = [side_from_figures(analysed[i], label=str(labels[i]), kind="capture",
                                h=responses[i]) for i in usable]
@@ -651,7 +652,8 @@ def _attenuation_block(doc: dict[str, Any]) -> list[str]:
 def _section(sec: RoomSection, anchor: str) -> list[str]:
     out = [f'<section class="room" id="{anchor}">', f"<h2>Room: {_e(sec.name)}</h2>"]
     labels = ", ".join(p["label"] for p in sec.positions)
-    out.append(f'<p class="meta">{_e(sec.source)}{"; " if sec.source else ""}{sec.fs} Hz; '
+    rate = f"{sec.fs} Hz; " if sec.fs else ""
+    out.append(f'<p class="meta">{_e(sec.source)}{"; " if sec.source else ""}{rate}'
                f"positions: {_e(labels)}</p>")
     for t in sec.notes:
         out.append(f'<p class="meta">{_e(t)}</p>')
