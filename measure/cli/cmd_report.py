@@ -115,12 +115,12 @@ def _from_results(root: Path, fit: bool) -> list[Any]:
                 fs, h = audio.fs, audio.x[0]
                 sc = audio_io.sidecar_path(ir)
                 side = audio_io.read_json(sc) if sc.exists() else None
-            take_side = root / t["sidecar"] if isinstance(t.get("sidecar"), str) else None
-            if take_side is not None and take_side.exists():  # the conditions at capture
-                side = audio_io.read_json(take_side)
             elif is_used:
                 raise AudioFileError(f"room {name!r}: the response {ir} of a used take is "
                                      "missing; run `measure batch` again")
+            take_side = root / t["sidecar"] if isinstance(t.get("sidecar"), str) else None
+            if take_side is not None and take_side.exists():  # the conditions at capture
+                side = audio_io.read_json(take_side)
             fig = root / t["figures"] if isinstance(t.get("figures"), str) and t["figures"] \
                 else None
             if fig is not None and fig.exists():
