@@ -86,12 +86,6 @@ def take_key(wav: Path, sidecar: Path, sweep: Path | None, settings: dict[str, A
     return h.hexdigest()
 
 
-def _sweep_for(side: dict[str, Any], room_folder: Path) -> Path | None:
-    from measure.cli.cmd_attenuation import _resolve_sweep
-
-    return _resolve_sweep(side.get("sweep_file"), room_folder)
-
-
 #: What a take's result carries over from its job.
 _CARRIED = ("room", "position", "take", "wav", "sidecar", "ir", "figures", "key", "sweep",
             "side")
@@ -100,20 +94,15 @@ _CARRIED = ("room", "position", "take", "wav", "sidecar", "ir", "figures", "key"
 def _process_take(job: dict[str, Any]) -> dict[str, Any]:
     """Recover, analyse and judge one take (runs in a worker process). Never raises: a failure
     comes back as ``used`` False with the reason."""
-    from measure import audio_io
-    from measure.deconvolve import recover_ir
+    from measure import audio_io, session
     from measure.errors import MeasureError
     from measure.parameters import analyze_ir
 
     out = {k: job[k] for k in _CARRIED}
     try:
         sweep = audio_io.read_sweep(job["sweep"])
-        audio = audio_io.read_audio(job["root"] / job["wav"])
-        if audio.fs != sweep.fs:
-            raise MeasureError(f"the take is at {audio.fs} Hz but its sweep at {sweep.fs} Hz")
-        loop = job["side"].get("loopback_channel")
-        ir = recover_ir(audio.x, sweep, reference_channel=loop - 1 if isinstance(loop, int)
-                        else None)
+        ir = session.recover_take(audio_io.read_audio(job["root"] / job["wav"]), job["side"],
+                                  sweep)
         h = ir.h[0]
         figs = analyze_ir(h, ir.fs, context=ir.context(0))
         doc = figs.to_dict()
@@ -186,7 +175,7 @@ def _jobs(captures: Path, root: Path, settings: dict[str, Any]) -> tuple[list[di
                 "side": {}, "sweep": None}
         try:
             side = audio_io.read_json(t.json)
-            sweep = _sweep_for(side, t.wav.parent)
+            sweep = session.resolve_sweep(side.get("sweep_file"), t.wav.parent)
             if sweep is None:
                 raise ValueError(f"its sidecar names no sweep file that exists "
                                  f"({side.get('sweep_file')!r})")

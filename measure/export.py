@@ -72,11 +72,15 @@ class ConvolutionIR:
     bend_db: float
 
     def sidecar(self) -> dict[str, Any]:
+        note = ("starts at the direct sound (no pre-delay); the band limit made minimum-phase "
+                "so the cut does not bend the response")
+        if self.bend_db > MAX_BEND_DB:
+            note = (f"starts at the direct sound; cutting the pre-time bends the response by "
+                    f"{self.bend_db:.2f} dB above 2·f1, more than {MAX_BEND_DB} dB: use the "
+                    "recovered response where that matters")
         return {"format": "measure.convolution-ir/1", "fs": self.fs,
                 "peak_dbfs": self.peak_dbfs, "gain_db": self.gain_db, "cut_s": self.cut_s,
-                "bend_above_2f1_db": self.bend_db,
-                "note": "starts at the direct sound (no pre-delay); the band limit made "
-                        "minimum-phase so the cut does not bend the response"}
+                "bend_above_2f1_db": self.bend_db, "note": note}
 
 
 def _band_limit(spec: Any, n_fft: int) -> np.ndarray:

@@ -950,7 +950,9 @@ def predict(room: RoomDescription, fs: int, *, max_order: int = DEFAULT_MAX_ORDE
     d_direct = math.dist(room.source_m, room.receiver_m)
     t_direct = d_direct / c
     if length_s is None:
-        length_s = min(t_direct + 1.25 * float(t_eyring.max()) + 0.05, _MAX_DEFAULT_LENGTH_S)
+        # at least 0.2 s, so that even a nearly anechoic room's response can be analysed
+        length_s = min(max(t_direct + 1.25 * float(t_eyring.max()) + 0.05, 0.2),
+                       _MAX_DEFAULT_LENGTH_S)
     length_s = check_positive(length_s, "length_s", unit="s")
     n = int(round(length_s * fs))
 

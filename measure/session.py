@@ -35,6 +35,9 @@ __all__ = [
     "save_take",
     "update_sidecar",
     "list_takes",
+    "latest_takes",
+    "resolve_sweep",
+    "recover_take",
 ]
 
 TAKE_FORMAT = "measure.take/1"
@@ -235,3 +238,37 @@ def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[s
                 if (d.get("verdict") or {}).get("verdict", "good") == "good"]
         out.append((good or docs)[0])
     return sorted(out, key=lambda td: td[0].position)
+
+
+def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str]) -> Path | None:
+    """The sweep file a take's sidecar names (``sweep_file``): as given, or beside the
+    captures tree (``CAPTURES/../NAME``, ``CAPTURES/../sweeps/NAME``, ``CAPTURES/sweeps/NAME``);
+    None when none exists."""
+    if not named:
+        return None
+    p, folder = Path(named), Path(room_folder)
+    for cand in (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
+                 folder.parent / "sweeps" / p.name):
+        if cand.exists():
+            return cand
+    return None
+
+
+def recover_take(audio: Any, sidecar: dict[str, Any], sweep: Any, *, name: str = "the take"):
+    """The impulse response of a take (``audio`` from :func:`measure.audio_io.read_audio`)
+    recovered with ``sweep``, its loopback channel (1-based ``loopback_channel`` in the
+    sidecar) as the timing reference.
+
+    Raises
+    ------
+    ParameterError
+        If the take and the sweep are at different rates.
+    """
+    from measure.deconvolve import recover_ir
+
+    if audio.fs != sweep.fs:
+        raise ParameterError(f"{name} is at {audio.fs} Hz but its sweep at {sweep.fs} Hz; "
+                             "record at the sweep's rate")
+    loop = sidecar.get("loopback_channel") if isinstance(sidecar, dict) else None
+    return recover_ir(audio.x, sweep, reference_channel=loop - 1 if isinstance(loop, int)
+                      else None)

@@ -106,22 +106,9 @@ def _window(text: str) -> float | None:
     return ms / 1000.0
 
 
-def _resolve_sweep(named: str | None, folder: Path) -> Path | None:
-    """The sweep file a take's sidecar names, as given, or beside the captures tree."""
-    if not named:
-        return None
-    p = Path(named)
-    for cand in (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
-                 folder.parent / "sweeps" / p.name):
-        if cand.exists():
-            return cand
-    return None
-
-
 def _from_room_folder(folder: Path, sweep_opt: str | None) -> dict[str, Any]:
     """Recover each position's response from the room folder's newest good takes."""
     from measure import audio_io, session
-    from measure.deconvolve import recover_ir
     from measure.errors import AudioFileError, ParameterError
 
     takes = session.latest_takes(folder)
@@ -131,21 +118,16 @@ def _from_room_folder(folder: Path, sweep_opt: str | None) -> dict[str, Any]:
     sweeps: dict[Path, Any] = {}
     out = {"h": [], "labels": [], "distances": [], "angles": [], "fs": None, "air": {}}
     for take, side in takes:
-        path = Path(sweep_opt) if sweep_opt else _resolve_sweep(side.get("sweep_file"), folder)
+        path = Path(sweep_opt) if sweep_opt else session.resolve_sweep(side.get("sweep_file"),
+                                                                      folder)
         if path is None:
             raise AudioFileError(
                 f"{take.wav.name}: its sidecar names no sweep file that exists "
                 f"({side.get('sweep_file')!r}); give --sweep SWEEP.wav")
         if path not in sweeps:
             sweeps[path] = audio_io.read_sweep(path)
-        sweep = sweeps[path]
-        audio = audio_io.read_audio(take.wav)
-        if audio.fs != sweep.fs:
-            raise ParameterError(f"{take.wav.name} is at {audio.fs} Hz but its sweep at "
-                                 f"{sweep.fs} Hz; record at the sweep's rate")
-        loop = side.get("loopback_channel")
-        ref = None if not isinstance(loop, int) else loop - 1
-        ir = recover_ir(audio.x, sweep, reference_channel=ref)
+        ir = session.recover_take(audio_io.read_audio(take.wav), side, sweeps[path],
+                                  name=take.wav.name)
         if out["fs"] not in (None, ir.fs):
             raise ParameterError("the takes are at different sample rates; measure a series at "
                                  "one rate")

@@ -105,21 +105,14 @@ def _measured(path: Path, sweep_opt: str | None) -> tuple[Any, int, str]:
 
         is_take = sweep_recording_evidence(audio.x[0], audio.fs) is not None
     if is_take:
-        from measure.cli.cmd_attenuation import _resolve_sweep
-        from measure.deconvolve import recover_ir
+        from measure.session import recover_take, resolve_sweep
 
         named = doc.get("sweep_file") if isinstance(doc, dict) else None
-        sweep_path = Path(sweep_opt) if sweep_opt else _resolve_sweep(named, path.parent)
+        sweep_path = Path(sweep_opt) if sweep_opt else resolve_sweep(named, path.parent)
         if sweep_path is None:
             raise ParameterError(f"{path}: a take, but its sidecar names no sweep file that "
                                  f"exists ({named!r}); give --sweep SWEEP.wav")
-        sweep = audio_io.read_sweep(sweep_path)
-        if audio.fs != sweep.fs:
-            raise ParameterError(f"{path} is at {audio.fs} Hz but its sweep at {sweep.fs} Hz; "
-                                 "record at the sweep's rate")
-        loop = doc.get("loopback_channel") if isinstance(doc, dict) else None
-        ir = recover_ir(audio.x, sweep, reference_channel=loop - 1 if isinstance(loop, int)
-                        else None)
+        ir = recover_take(audio, doc, audio_io.read_sweep(sweep_path), name=str(path))
         return ir.h[0], ir.fs, "capture"
     response_context(str(path), audio.x[0], audio.fs, 0)  # refuses takes and sweeps
     return audio.x[0], audio.fs, "impulse response"

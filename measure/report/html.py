@@ -191,32 +191,13 @@ def check_html_path(path: str | os.PathLike[str], *, option: str = "--out") -> P
 
 def _figures(h: np.ndarray, fs: int, figures: Any, *, modelled: Any = None,
              fit_report: Any = None, comparison: Any = None, attenuation: Any = None,
-             title: str = "", dpi: float = PNG_DPI) -> list[tuple[str, bytes]]:
-    """The plots of one room as (caption, PNG bytes): the one place that chooses them.
-
-    Uses :func:`measure.report.plots.report_figures` when the plots module has it, else the
-    analysis plot, the model-fit plot (when a fit report is given) and the attenuation plot
-    (when an attenuation document with a series is given).
-    """
+             dpi: float = PNG_DPI) -> list[tuple[str, bytes]]:
+    """The plots of one room as (caption, PNG bytes), chosen by
+    :func:`measure.report.plots.report_figures`."""
     from measure.report import plots
 
-    if hasattr(plots, "report_figures"):
-        pairs = list(plots.report_figures(h, fs, figures, modelled=modelled,
-                                          fit_report=fit_report, comparison=comparison,
-                                          attenuation=attenuation))
-    else:
-        pairs = [("The impulse response, each band's decay curve with its EDT, T20 and T30 "
-                  "fits, and the decay times per band",
-                  plots.plot_analysis(h, fs, figures, title=title))]
-        if fit_report is not None:
-            pairs.append(("The compact model against the measurement: EDT, T30 and C80 per band "
-                          "and their differences in JNDs",
-                          plots.plot_model_fit(figures, modelled, fit_report,
-                                               title=f"{title}: measured against the model")))
-        if isinstance(attenuation, dict) and (attenuation.get("direction") is not None or
-                                              attenuation.get("rolloff_factor") is not None):
-            pairs.append(("Gain, low-pass, high-pass and wet/dry against distance or angle",
-                          plots.plot_attenuation(attenuation, title=title)))
+    pairs = list(plots.report_figures(h, fs, figures, modelled=modelled, fit_report=fit_report,
+                                      comparison=comparison, attenuation=attenuation))
     out = []
     for caption, fig in pairs:
         buf = io.BytesIO()
@@ -462,8 +443,7 @@ def room_section(name: str, responses: Sequence[np.ndarray | None], fs: int, *,
         notes.append("one position only: no ISO 3382-2 position average (it needs two source-"
                      "receiver combinations or more)")
     images = _figures(h0, fs, fig0, modelled=modelled, fit_report=fit_report,
-                      comparison=cmp_obj, attenuation=attenuation,
-                      title=f"{name}, {labels[first]}", dpi=dpi)
+                      comparison=cmp_obj, attenuation=attenuation, dpi=dpi)
     return RoomSection(name=str(name), source=source, fs=fs, positions=tuple(positions),
                        average=average, model=model_doc, comparison=comparison,
                        attenuation=attenuation, images=tuple(images), notes=tuple(notes))
