@@ -106,6 +106,11 @@ ARRIVAL_SEARCH_S = 0.1
 #: or float one delivers more). Anything that reaches it has used up the converter's range.
 #: The one definition: measure.capture judges takes and the level check with it too.
 CLIP_LEVEL = 32767.0 / 32768.0
+#: Longest time kept before the direct sound, s (two periods of f1 need 0.2 s at 10 Hz).
+MAX_PRE_S = 10.0
+#: Most harmonic responses analysed (orders 2..MAX_HARMONICS + 1): beyond about the 17th
+#: order the harmonic windows of an exponential sweep crowd into a few milliseconds.
+MAX_HARMONICS = 16
 #: Time kept before the direct sound of each harmonic response.
 HARMONIC_PRE_S = 0.005
 #: Group-delay fit band for the single-sweep drift estimate (measurement.md §1.6).
@@ -1397,12 +1402,15 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
     if pre_s is None:
         pre_s = default_pre_s(spec.f1_hz)
     check_nonnegative(pre_s, "pre", unit="s")
+    if pre_s > MAX_PRE_S:
+        raise ParameterError(f"pre={pre_s:g} s: at most {MAX_PRE_S:g} s can be kept before the "
+                             "direct sound (the default keeps two periods of f1); give less")
     if max_length_s is not None:
         check_positive(max_length_s, "max_length", unit="s")
-    if not (isinstance(n_harmonics, int) and n_harmonics >= 0):
+    if not (isinstance(n_harmonics, int) and 0 <= n_harmonics <= MAX_HARMONICS):
         raise ParameterError(
-            f"n_harmonics={n_harmonics!r} must be a whole number >= 0; give e.g. 4 (orders 2-5) "
-            "or 0 for none")
+            f"n_harmonics={n_harmonics!r} must be a whole number from 0 to {MAX_HARMONICS}; give "
+            "e.g. 4 (orders 2-5) or 0 for none")
     for c in ([] if channels is None else list(channels)) + (
             [] if reference_channel is None else [reference_channel]):
         if not 0 <= c < n_ch:

@@ -90,6 +90,11 @@ LOW_TRANSITION_OCTAVES = 0.5
 HIGH_TRANSITION_OCTAVES = 1.0 / 12.0
 
 
+#: Longest sweep file (lead-in, sweeps and gaps), s: a take of it and the arrays its recovery
+#: works on (a few float64 copies at twice its length) stay within a laptop's memory.
+MAX_FILE_S = 600.0
+
+
 @dataclass(frozen=True, slots=True)
 class SweepSpec:
     """Every number that defines a sweep file; rebuilt bit for bit by :func:`make_sweep`.
@@ -159,6 +164,12 @@ class SweepSpec:
         if self.n_sweep < 16:
             raise ParameterError(
                 f"a {self.duration_s:g} s sweep at {fs} Hz has fewer than 16 samples; lengthen it")
+        total_s = self.lead_in_s + self.repeats * (self.duration_s + self.gap_s)
+        if total_s > MAX_FILE_S:
+            raise ParameterError(
+                f"the sweep file would last {total_s:.3g} s; at most {MAX_FILE_S:g} s "
+                f"({MAX_FILE_S / 60:g} min) fits the memory that recovering its takes needs; "
+                "use fewer repeats, a shorter sweep or a shorter gap")
         object.__setattr__(self, "fs", fs)
         object.__setattr__(self, "repeats", int(self.repeats))
 

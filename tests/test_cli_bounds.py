@@ -1,0 +1,47 @@
+"""Absurd sizes are refused where they enter, with the bound in the message (issue "Never lose
+a take, never crash on a bad file": they ended in memory errors), and nothing is written."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from measure.cli import main
+from measure.sweep import MAX_FILE_S
+
+
+def _run(argv, capsys):
+    code = main(argv)
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+@pytest.fixture
+def sweep_and_silence(tmp_path, capsys):
+    from measure.audio_io import write_audio
+
+    assert main(["sweep", str(tmp_path / "s.wav"), "--duration", "2", "--gap", "1"]) == 0
+    capsys.readouterr()
+    write_audio(tmp_path / "silence.wav", np.zeros(48000 * 5), 48000, subtype="PCM_16")
+    return tmp_path
+
+
+@pytest.mark.parametrize("args, bound", [
+    (["sweep", "{d}/x.wav", "--duration", "1e9"], f"at most {MAX_FILE_S:g} s"),
+    (["sweep", "{d}/x.wav", "--repeats", "100000"], f"at most {MAX_FILE_S:g} s"),
+    (["ir", "{d}/silence.wav", "--sweep", "{d}/s.wav", "--out", "{d}/o.wav", "--pre", "1e6"],
+     "at most 10 s"),
+    (["ir", "{d}/silence.wav", "--sweep", "{d}/s.wav", "--out", "{d}/o.wav", "--harmonics",
+      "100000"], "from 0 to 16"),
+    (["ir", "{d}/silence.wav", "--sweep", "{d}/s.wav", "--out", "{d}/o.wav"], "no sweep found"),
+])
+def test_absurd_sizes_are_one_error_line_and_write_nothing(sweep_and_silence, capsys, args,
+                                                            bound):
+    d = sweep_and_silence
+    before = sorted(p.name for p in d.iterdir())
+    code, out, err = _run([a.format(d=d) for a in args], capsys)
+    assert code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: ") and bound in lines[0], err
+    assert "Traceback" not in err
+    assert sorted(p.name for p in d.iterdir()) == before
