@@ -45,3 +45,28 @@ def test_absurd_sizes_are_one_error_line_and_write_nothing(sweep_and_silence, ca
     assert len(lines) == 1 and lines[0].startswith("error: ") and bound in lines[0], err
     assert "Traceback" not in err
     assert sorted(p.name for p in d.iterdir()) == before
+
+
+def test_no_command_writes_over_its_own_inputs(tmp_path, capsys):
+    # Issue "Never lose a take", inputs destroyed: `ir --out` equal to the sweep overwrote it
+    # and its sidecar; `auralize --out` equal to the dry sound or the IR; a model written over
+    # an IR's sidecar. Each is refused, and every file keeps its bytes.
+    from measure.audio_io import write_audio
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    assert main(["sweep", str(tmp_path / "s.wav"), "--duration", "2", "--gap", "1"]) == 0
+    h = room_ir(DEMO_ROOMS[1], 48000, seed=1)
+    write_audio(tmp_path / "ir.wav", 0.5 * h / np.max(np.abs(h)), 48000)
+    write_audio(tmp_path / "dry.wav", 0.1 * np.sin(np.arange(48000) * 0.05), 48000)
+    capsys.readouterr()
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    d = str(tmp_path)
+    for argv in (["ir", f"{d}/ir.wav", "--sweep", f"{d}/s.wav", "--out", f"{d}/s.wav"],
+                 ["auralize", f"{d}/ir.wav", f"{d}/dry.wav", "--out", f"{d}/dry.wav"],
+                 ["auralize", f"{d}/ir.wav", f"{d}/dry.wav", "--out", f"{d}/ir.wav"],
+                 ["fit", f"{d}/ir.wav", "--out", f"{d}/ir.json"],
+                 ["ir", f"{d}/ir.wav", "--sweep", f"{d}/s.wav", "--out", f"{d}/ir.wav"]):
+        code, out, err = _run(argv, capsys)
+        assert code == 2 and "would overwrite the input" in err, (argv, err)
+        assert len(err.strip().splitlines()) == 1
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before

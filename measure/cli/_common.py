@@ -42,3 +42,23 @@ def channel_index(channel: int, n_channels: int, *, option: str, source: str) ->
             f"{option} {channel} does not exist: {source} has {n_channels} channel(s); choose "
             f"one of 1..{n_channels}")
     return channel - 1
+
+
+def refuse_overwriting_inputs(out: Any, *inputs: Any, option: str = "--out",
+                              writes_sidecar: bool = False) -> None:
+    """Raise ParameterError when ``out`` (or, for a command that writes one, its JSON sidecar)
+    is one of ``inputs`` or one of their sidecars: no command writes over what it reads."""
+    from pathlib import Path
+
+    from measure.audio_io import sidecar_path
+    from measure.errors import ParameterError
+
+    def files(p: Any) -> set[Path]:
+        p = Path(p).resolve()
+        return {p, sidecar_path(p).resolve()} if p.suffix.lower() != ".json" else {p}
+
+    written = files(out) if writes_sidecar else {Path(out).resolve()}
+    for inp in inputs:
+        if inp is not None and written & files(inp):
+            raise ParameterError(f"{option} {out} would overwrite the input {inp} (or its "
+                                 "sidecar); write to a new file")

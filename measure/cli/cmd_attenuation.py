@@ -152,7 +152,7 @@ def _num(v: Any) -> float | None:
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
     from measure.attenuation import analyze_series
-    from measure.cli._common import info, print_json
+    from measure.cli._common import info, print_json, refuse_overwriting_inputs
     from measure.errors import ParameterError
 
     distances = _numbers(args.distances, "--distances")
@@ -169,6 +169,9 @@ def run(args: argparse.Namespace) -> int:
     if (args.model is None) != (args.model_out is None):
         raise ParameterError("--model and --model-out go together: the model is read from one "
                              "file and written to the other")
+    if args.model_out is not None:
+        refuse_overwriting_inputs(args.model_out, args.model, *args.inputs,
+                                  option="--model-out")
     if args.plot is not None:
         from measure.report import check_png_path, require_matplotlib
 

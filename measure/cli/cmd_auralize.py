@@ -31,7 +31,7 @@ def run(args: argparse.Namespace) -> int:
     import numpy as np
 
     from measure import audio_io
-    from measure.cli._common import channel_index, info
+    from measure.cli._common import channel_index, info, refuse_overwriting_inputs
     from measure.errors import ParameterError
     from measure.model.render import auralize, default_seconds, render_model
 
@@ -40,6 +40,7 @@ def run(args: argparse.Namespace) -> int:
         raise ParameterError(f"--out {args.out!r} must end in .wav; name it e.g. wet.wav")
     if args.peak is not None and not (args.peak <= 0):
         raise ParameterError(f"--peak {args.peak} dBFS must be at most 0")
+    refuse_overwriting_inputs(args.out, args.room, args.dry)
     dry = audio_io.read_audio(args.dry)
     room = Path(args.room)
     if room.suffix.lower() == ".json":

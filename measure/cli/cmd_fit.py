@@ -49,13 +49,14 @@ def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from measure import audio_io
-    from measure.cli._common import channel_index, info, print_json
+    from measure.cli._common import channel_index, info, print_json, refuse_overwriting_inputs
     from measure.errors import ParameterError
     from measure.model.fit import fit_with_i3dl2
 
     out = Path(args.out)
     if out.suffix.lower() != ".json":
         raise ParameterError(f"--out {args.out!r} must end in .json; name the model e.g. room.json")
+    refuse_overwriting_inputs(args.out, args.ir)
     if args.order is not None and args.order < 1:
         raise ParameterError(f"--order {args.order} must be >= 1 (e.g. 4 or 8)")
     if args.echoes is not None and args.echoes < 0:

@@ -37,12 +37,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
-    from measure.cli._common import channel_index, info, print_json, warn
+    from measure.cli._common import channel_index, info, print_json, refuse_overwriting_inputs, warn
     from measure.deconvolve import recover_ir
     from measure.errors import ParameterError
 
     if not str(args.out).lower().endswith(".wav"):
         raise ParameterError(f"--out {args.out!r} must end in .wav; name the IR e.g. ir.wav")
+    refuse_overwriting_inputs(args.out, args.capture, args.sweep, writes_sidecar=True)
     sweep = audio_io.read_sweep(args.sweep)
     cap = audio_io.read_audio(args.capture)
     if cap.fs != sweep.fs:

@@ -44,7 +44,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
-    from measure.cli._common import info, print_json
+    from measure.cli._common import info, print_json, refuse_overwriting_inputs
     from measure.errors import ParameterError
     from measure.predict import fit_absorption, load_room, predict
 
@@ -55,6 +55,8 @@ def run(args: argparse.Namespace) -> int:
                              "is fitted to a measurement")
     if args.order is not None and not 0 <= args.order <= 30:
         raise ParameterError(f"--order {args.order} must be a reflection order from 0 to 30")
+    if args.out is not None:
+        refuse_overwriting_inputs(args.out, args.room, args.match, args.sweep)
     room = load_room(args.room)
     fit = None
     if args.match is not None:

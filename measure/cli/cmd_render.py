@@ -27,7 +27,7 @@ def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from measure import audio_io
-    from measure.cli._common import info
+    from measure.cli._common import info, refuse_overwriting_inputs
     from measure.errors import ParameterError
     from measure.model.modelfile import model_from_dict
     from measure.model.render import default_seconds, render_model
@@ -35,6 +35,7 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.suffix.lower() != ".wav":
         raise ParameterError(f"--out {args.out!r} must end in .wav; name it e.g. model_ir.wav")
+    refuse_overwriting_inputs(args.out, args.model)
     model = model_from_dict(audio_io.read_json(args.model, what="model file"))
     fs = model.fit_fs if args.rate is None else args.rate
     if not 8000 <= fs <= 384000:
