@@ -57,6 +57,7 @@ def test_no_command_writes_over_its_own_inputs(tmp_path, capsys):
     assert main(["sweep", str(tmp_path / "s.wav"), "--duration", "2", "--gap", "1"]) == 0
     h = room_ir(DEMO_ROOMS[1], 48000, seed=1)
     write_audio(tmp_path / "ir.wav", 0.5 * h / np.max(np.abs(h)), 48000)
+    (tmp_path / "ir.json").write_text('{"format": "an IR sidecar kept beside it"}')
     write_audio(tmp_path / "dry.wav", 0.1 * np.sin(np.arange(48000) * 0.05), 48000)
     capsys.readouterr()
     before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}

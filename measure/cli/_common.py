@@ -58,7 +58,8 @@ def refuse_overwriting_inputs(out: Any, *inputs: Any, option: str = "--out",
         return {p, sidecar_path(p).resolve()} if p.suffix.lower() != ".json" else {p}
 
     written = files(out) if writes_sidecar else {Path(out).resolve()}
-    for inp in inputs:
-        if inp is not None and written & files(inp):
+    for inp in inputs:  # an input's sidecar counts where it exists
+        if inp is not None and written & {f for f in files(inp)
+                                          if f == Path(inp).resolve() or f.exists()}:
             raise ParameterError(f"{option} {out} would overwrite the input {inp} (or its "
                                  "sidecar); write to a new file")
