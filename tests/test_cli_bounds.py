@@ -71,3 +71,19 @@ def test_no_command_writes_over_its_own_inputs(tmp_path, capsys):
         assert code == 2 and "would overwrite the input" in err, (argv, err)
         assert len(err.strip().splitlines()) == 1
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+
+
+@pytest.mark.parametrize("argv, names", [
+    (["sweep", "x.wav", "--duration", "abc"], ("--duration", "measure sweep --help")),
+    (["analyze", "a.wav", "b.wav"], ("unrecognized arguments: b.wav", "measure analyze --help")),
+    (["nosuch"], ("invalid choice", "measure --help")),
+])
+def test_argparse_errors_are_one_line_naming_the_command(capsys, argv, names):
+    # Issue "Never lose a take": argparse printed its whole usage block, and for extra
+    # arguments the top-level usage instead of the command's
+    with pytest.raises(SystemExit) as exc:
+        main(argv)
+    assert exc.value.code == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and err.startswith("error: "), err
+    assert "usage:" not in err and all(n in err for n in names), err

@@ -13,6 +13,7 @@ import argparse
 import importlib
 import sys
 from collections.abc import Sequence
+from typing import NoReturn
 
 from measure._version import __version__
 
@@ -41,14 +42,24 @@ COMMANDS: tuple[str, ...] = (
 )
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with its usage errors in the tool's one-line form: ``error: what; what to do``
+    (the command's usage stays on ``--help``), exit status 2."""
+
+    def error(self, message: str) -> NoReturn:
+        message = " ".join(message.split())
+        sys.stderr.write(f"error: {message}; see `{self.prog} --help`\n")
+        raise SystemExit(EXIT_USAGE)
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="measure",
         description="Measure rooms with sine sweeps, report ISO 3382-1 figures and fit compact "
                     "room models for interactive audio.",
     )
     parser.add_argument("--version", action="version", version=f"measure {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for modname in COMMANDS:
         mod = importlib.import_module(modname)
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=getattr(mod, "DESCRIPTION", mod.HELP),
@@ -63,7 +74,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     from measure.errors import MeasureError
 
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
+    if extra:  # reported by the command's own parser, which names the command
+        sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+        target = sub.choices.get(getattr(args, "command", None) or "", parser)
+        target.error(f"unrecognized arguments: {' '.join(extra)}")
     if getattr(args, "_run", None) is None:
         parser.print_help()
         return EXIT_USAGE
