@@ -831,7 +831,7 @@ def judge_take(stats: Sequence[ChannelStats], *, n_xruns: int, channel_labels: S
         txt = ("input and output are different devices with separate clocks: the latency "
                "includes both devices' buffers and changes from take to take")
         if drift_ppm is not None:
-            txt += f"; clock drift {drift_ppm:+.1f} ppm was corrected"
+            txt += f"; clock drift {round(drift_ppm, 1) + 0.0:+.1f} ppm was corrected"
         if not has_loopback:
             txt += ("; for exact timing use one interface with a loopback cable "
                     "(--loopback-channel)")

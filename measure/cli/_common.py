@@ -63,3 +63,27 @@ def refuse_overwriting_inputs(out: Any, *inputs: Any, option: str = "--out",
                                           if f == Path(inp).resolve() or f.exists()}:
             raise ParameterError(f"{option} {out} would overwrite the input {inp} (or its "
                                  "sidecar); write to a new file")
+
+
+def signed(v: float, decimals: int = 1) -> str:
+    """``v`` with its sign at ``decimals`` places, never "-0.0" (a value that rounds to zero
+    reads "+0.0").
+
+    Examples
+    --------
+    >>> signed(-0.03), signed(22.94), signed(-1.25, 2)
+    ('+0.0', '+22.9', '-1.25')
+    """
+    r = round(float(v), decimals) + 0.0  # -0.0 + 0.0 is +0.0
+    return f"{r:+.{decimals}f}"
+
+
+def plural(n: int, word: str, words: str | None = None) -> str:
+    """``n`` with the word in the right number: "1 echo", "3 echoes".
+
+    Examples
+    --------
+    >>> plural(1, "echo", "echoes"), plural(0, "band"), plural(3, "echo", "echoes")
+    ('1 echo', '0 bands', '3 echoes')
+    """
+    return f"{n} {word if n == 1 else (words or word + 's')}"

@@ -270,6 +270,7 @@ def _fmt(v, spec: str, unit: str = "") -> str:
 
 
 def _summary(rows, root: Path) -> str:
+    from measure.cli._common import signed
     from measure.demo import BUILDING
 
     head = (f"{'space':<11} {'position':<10} {'T_mid':>6} {'EDT_mid':>7} {'C80':>6} "
@@ -291,7 +292,7 @@ def _summary(rows, root: Path) -> str:
             f"{t.room.name:<11} {t.position:<10} {_fmt(sn.get('t_mid_s'), '6.2f')} "
             f"{_fmt(sn.get('edt_mid_s'), '7.2f')} {_fmt(sn.get('c80_mid_db'), '6.1f')} "
             f"{_fmt(sn.get('d50_mid'), '5.2f')} {_fmt(doc.get('sti'), '5.2f')} "
-            f"{ir.peak_to_noise_db[0]:6.1f} {ir.drift_ppm:+5.1f} ppm "
+            f"{ir.peak_to_noise_db[0]:6.1f} {signed(ir.drift_ppm):>5} ppm "
             f"{_fmt(worst_t, '4.1f')} JND {_fmt(decay, '13.2f')} s  "
             f"{'GOOD' if good else 'REDO'}")
         for r in verdict["reasons"]:

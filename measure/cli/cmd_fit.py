@@ -49,7 +49,13 @@ def run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from measure import audio_io
-    from measure.cli._common import channel_index, info, print_json, refuse_overwriting_inputs
+    from measure.cli._common import (
+        channel_index,
+        info,
+        plural,
+        print_json,
+        refuse_overwriting_inputs,
+    )
     from measure.errors import ParameterError
     from measure.model.fit import fit_with_i3dl2
 
@@ -89,7 +95,8 @@ def run(args: argparse.Namespace) -> int:
     else:
         print(f"{args.ir}: {audio.fs} Hz, {h.size / audio.fs:.2f} s; model written to {out}")
         print(f"  coloration order {m.coloration.order if m.coloration else 0}, "
-              f"{len(m.echoes)} echoes, late part in {len(m.late.band_centers_hz)} bands, "
+              f"{plural(len(m.echoes), 'echo', 'echoes')}, late part in "
+              f"{plural(len(m.late.band_centers_hz), 'band')}, "
               f"mixing time "
               + (f"{m.mixing_time_s * 1000:.1f} ms" if m.mixing_time_s is not None else "not reached"))
         print("")

@@ -80,8 +80,10 @@ def run(args: argparse.Namespace) -> int:
 
 def format_ir_summary(ir) -> str:
     """A few lines on the recovered responses: latency, drift, peak-to-noise, distortion."""
+    from measure.cli._common import signed
+
     lines = [f"sample rate {ir.fs} Hz, {ir.n_averaged} sweep(s) averaged, "
-             f"clock drift {ir.drift_ppm:+.1f} ppm"]
+             f"clock drift {signed(ir.drift_ppm)} ppm"]
     for c, lat, pnr, hds in zip(ir.channels, ir.latency_s, ir.peak_to_noise_db, ir.harmonics,
                                 strict=True):
         dist = ", ".join(hd.describe() for hd in hds) or "not analysed"
