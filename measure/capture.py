@@ -135,7 +135,7 @@ class DeviceInfo:
         }
 
 
-def list_devices() -> tuple[DeviceInfo, ...]:
+def list_devices(*, allow_empty: bool = False) -> tuple[DeviceInfo, ...]:
     """Every input and output device PortAudio knows, with its host API and default rate.
 
     Raises
@@ -143,7 +143,7 @@ def list_devices() -> tuple[DeviceInfo, ...]:
     MissingDependencyError
         If PortAudio is not installed.
     DeviceError
-        If PortAudio finds no device at all.
+        If PortAudio finds no device at all (unless ``allow_empty``: then an empty tuple).
     """
     sd = _sd()
     try:
@@ -160,7 +160,7 @@ def list_devices() -> tuple[DeviceInfo, ...]:
                    is_default_input=int(d["index"]) == default_in,
                    is_default_output=int(d["index"]) == default_out)
         for d in raw)
-    if not devices:
+    if not devices and not allow_empty:
         raise DeviceError(f"PortAudio found no sound devices; {NO_DEVICE_ADVICE}")
     return devices
 

@@ -87,3 +87,31 @@ def test_argparse_errors_are_one_line_naming_the_command(capsys, argv, names):
     err = capsys.readouterr().err
     assert len(err.strip().splitlines()) == 1 and err.startswith("error: "), err
     assert "usage:" not in err and all(n in err for n in names), err
+
+
+def test_devices_json_with_no_devices_is_an_empty_list(monkeypatch, capsys):
+    # Issue "Never lose a take": `measure devices --json` with no devices exited 2; a script
+    # reads an empty list instead (the table form still says no device was found)
+    import json
+
+    from measure import capture
+
+    class FakeSd:
+        class PortAudioError(Exception):
+            pass
+
+        @staticmethod
+        def query_devices():
+            return []
+
+        @staticmethod
+        def query_hostapis():
+            return []
+
+        default = type("D", (), {"device": (-1, -1)})()
+
+    monkeypatch.setattr(capture, "_sd", lambda: FakeSd)
+    assert main(["devices", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out) == {"devices": []}
+    assert main(["devices"]) == 2
+    assert "no sound devices" in capsys.readouterr().err

@@ -21,7 +21,7 @@ def run(args: argparse.Namespace) -> int:
     from measure.capture import list_devices
     from measure.cli._common import print_json
 
-    devices = list_devices()
+    devices = list_devices(allow_empty=args.json)  # a script reads an empty list, not an error
     if args.json:
         print_json({"devices": [d.to_dict() for d in devices]})
         return 0
