@@ -256,8 +256,16 @@ def read_json(path: str | os.PathLike[str], *, what: str = "sidecar") -> dict[st
     if not p.exists():
         raise AudioFileError(f"the {what} {p} does not exist; keep it beside its audio file")
     try:
-        obj = json.loads(p.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as err:
+        text = p.read_text(encoding="utf-8")
+    except OSError as err:
+        raise AudioFileError(f"the {what} {p} cannot be read ({err.strerror or err}); check "
+                             "that it is a file you may read") from err
+    except UnicodeDecodeError as err:
+        raise AudioFileError(f"the {what} {p} is not text (not UTF-8: {err.reason}); restore "
+                             "it") from err
+    try:
+        obj = json.loads(text)
+    except json.JSONDecodeError as err:
         raise AudioFileError(f"the {what} {p} is not valid JSON ({err}); restore it") from err
     if not isinstance(obj, dict):
         raise AudioFileError(f"the {what} {p} is not a JSON object; restore it")

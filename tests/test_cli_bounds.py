@@ -115,3 +115,19 @@ def test_devices_json_with_no_devices_is_an_empty_list(monkeypatch, capsys):
     assert json.loads(capsys.readouterr().out) == {"devices": []}
     assert main(["devices"]) == 2
     assert "no sound devices" in capsys.readouterr().err
+
+
+def test_an_unreadable_sidecar_is_reported_as_unreadable_not_as_bad_json(tmp_path):
+    # Issue "Never lose a take": a sidecar that cannot be read was reported as "not valid JSON
+    # (Permission denied)"; a folder in the sidecar's place stands for any unreadable file
+    # (permissions do not bind the root user who runs CI)
+    from measure.audio_io import read_json
+    from measure.errors import AudioFileError
+
+    (tmp_path / "x.json").mkdir()
+    with pytest.raises(AudioFileError, match="cannot be read") as exc:
+        read_json(tmp_path / "x.json")
+    assert "not valid JSON" not in str(exc.value)
+    (tmp_path / "y.json").write_text("{ nope")
+    with pytest.raises(AudioFileError, match="not valid JSON"):
+        read_json(tmp_path / "y.json")
