@@ -261,8 +261,8 @@ def read_json(path: str | os.PathLike[str], *, what: str = "sidecar") -> dict[st
         raise AudioFileError(f"the {what} {p} cannot be read ({err.strerror or err}); check "
                              "that it is a file you may read") from err
     except UnicodeDecodeError as err:
-        raise AudioFileError(f"the {what} {p} is not text (not UTF-8: {err.reason}); restore "
-                             "it") from err
+        raise AudioFileError(f"the {what} {p} is not JSON (not even UTF-8 text: {err.reason}); "
+                             "give the JSON file, or restore it") from err
     try:
         obj = json.loads(text)
     except json.JSONDecodeError as err:
