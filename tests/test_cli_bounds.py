@@ -131,3 +131,12 @@ def test_an_unreadable_sidecar_is_reported_as_unreadable_not_as_bad_json(tmp_pat
     (tmp_path / "y.json").write_text("{ nope")
     with pytest.raises(AudioFileError, match="not valid JSON"):
         read_json(tmp_path / "y.json")
+
+
+def test_demo_refuses_a_non_empty_folder_without_force(tmp_path, capsys):
+    # Issue "Never lose a take": `demo --out` into an existing folder overwrote earlier
+    # responses and models; it now refuses before writing anything
+    (tmp_path / "keep.txt").write_text("an earlier result")
+    code, out, err = _run(["demo", "--out", str(tmp_path)], capsys)
+    assert code == 2 and "not empty" in err and "--force" in err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["keep.txt"]

@@ -18,7 +18,10 @@ into one folder (measure-demo, or measure-demo-2, ... if it exists; or --out DIR
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", metavar="DIR", default=None,
-                   help="folder to write into (default: a new ./measure-demo[-N])")
+                   help="folder to write into (default: a new ./measure-demo[-N]); an existing "
+                        "folder must be empty unless --force")
+    p.add_argument("--force", action="store_true",
+                   help="write into a non-empty --out folder, replacing an earlier demo's files")
 
 
 def _new_folder(out: str | None) -> Path:
@@ -48,6 +51,11 @@ def run(args: argparse.Namespace) -> int:
     from measure.sweep import make_sweep
 
     root = _new_folder(args.out)
+    if root.is_dir() and any(root.iterdir()) and not args.force:
+        raise AudioFileError(f"{root} is not empty: the demo would replace what is in it; give "
+                             "a new or empty folder, or --force to replace an earlier demo")
+    if root.exists() and not root.is_dir():
+        raise AudioFileError(f"{root} is a file; give --out a folder")
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as err:
