@@ -140,3 +140,28 @@ def test_demo_refuses_a_non_empty_folder_without_force(tmp_path, capsys):
     code, out, err = _run(["demo", "--out", str(tmp_path)], capsys)
     assert code == 2 and "not empty" in err and "--force" in err
     assert sorted(p.name for p in tmp_path.iterdir()) == ["keep.txt"]
+
+
+def test_sigterm_ends_cleanly_with_143_and_leaves_no_temporaries(tmp_path):
+    # Issue "Never lose a take": SIGTERM ended analyze, fit and demo silently with 143; now the
+    # same one line as an interrupt, exit 143 (128 + SIGTERM's 15, common practice), and no
+    # temporary file of an atomic write left behind
+    import signal
+    import subprocess
+    import sys
+    import time
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    p = subprocess.Popen([sys.executable, "-m", "measure", "demo", "--out", str(tmp_path / "d")],
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=root)
+    deadline = time.monotonic() + 60
+    while not (tmp_path / "d" / "captures").exists() and time.monotonic() < deadline:
+        time.sleep(0.1)  # the demo is writing its first take
+    time.sleep(0.5)
+    p.send_signal(signal.SIGTERM)
+    out, err = p.communicate(timeout=60)
+    assert p.returncode == 143
+    assert err.decode().strip().splitlines()[-1] == \
+        "error: terminated; nothing half-written was kept"
+    assert not [f for f in (tmp_path / "d").rglob("*") if f.name.endswith(".part")]

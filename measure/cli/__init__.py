@@ -69,8 +69,34 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised where the program is, so that every atomic writer removes its
+    temporary file on the way out (as for KeyboardInterrupt)."""
+
+
+def _on_sigterm(signum: int, frame: object) -> None:
+    raise _Terminated
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status."""
+    import signal
+
+    try:
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not the main thread: leave the signal alone
+        previous = None
+    try:
+        return _main(argv)
+    except _Terminated:
+        print("error: terminated; nothing half-written was kept", file=sys.stderr)
+        return 143
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _main(argv: Sequence[str] | None) -> int:
     from measure.errors import MeasureError
 
     parser = build_parser()
