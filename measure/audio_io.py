@@ -30,6 +30,7 @@ __all__ = [
     "read_json",
     "write_json",
     "write_text",
+    "read_text",
     "dumps",
     "sidecar_path",
     "file_sha256",
@@ -244,6 +245,20 @@ def write_text(path: str | os.PathLike[str], text: str) -> Path:
     return target
 
 
+def read_text(path: str | os.PathLike[str], *, what: str, kind: str) -> str:
+    """The UTF-8 text of a ``kind`` ("JSON", "TOML") file, or one AudioFileError line saying
+    why it cannot be had."""
+    p = Path(path)
+    try:
+        return p.read_text(encoding="utf-8")
+    except OSError as err:
+        raise AudioFileError(f"the {what} {p} cannot be read ({err.strerror or err}); check "
+                             "that it is a file you may read") from err
+    except UnicodeDecodeError as err:
+        raise AudioFileError(f"the {what} {p} is not {kind} (not even UTF-8 text: "
+                             f"{err.reason}); give the {kind} file, or restore it") from err
+
+
 def read_json(path: str | os.PathLike[str], *, what: str = "sidecar") -> dict[str, Any]:
     """Read a JSON object from ``path``.
 
@@ -255,14 +270,7 @@ def read_json(path: str | os.PathLike[str], *, what: str = "sidecar") -> dict[st
     p = Path(path)
     if not p.exists():
         raise AudioFileError(f"the {what} {p} does not exist; keep it beside its audio file")
-    try:
-        text = p.read_text(encoding="utf-8")
-    except OSError as err:
-        raise AudioFileError(f"the {what} {p} cannot be read ({err.strerror or err}); check "
-                             "that it is a file you may read") from err
-    except UnicodeDecodeError as err:
-        raise AudioFileError(f"the {what} {p} is not JSON (not even UTF-8 text: {err.reason}); "
-                             "give the JSON file, or restore it") from err
+    text = read_text(p, what=what, kind="JSON")
     try:
         obj = json.loads(text)
     except json.JSONDecodeError as err:

@@ -115,7 +115,7 @@ from measure._dsp import HALF_WIDTH, _kaiser_sinc
 from measure._validate import check_fs, check_nonnegative, check_positive
 from measure.attenuation import air_absorption_db_per_m, speed_of_sound_m_s
 from measure.bands import complementary_masks
-from measure.errors import AudioFileError, ParameterError
+from measure.errors import ParameterError
 from measure.virtual import CROSSFADE_OCTAVES, DECAY_60DB, OCTAVE_CENTERS_HZ
 
 __all__ = [
@@ -597,11 +597,9 @@ def load_room(path: str | Path) -> RoomDescription:
         If it is not valid TOML or describes an invalid room.
     """
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except OSError as err:
-        raise AudioFileError(f"cannot read the room description {str(p)!r} ({err.strerror}); "
-                             "check the path") from err
+    from measure.audio_io import read_text
+
+    text = read_text(p, what="room description", kind="TOML")
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:

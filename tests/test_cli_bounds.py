@@ -165,3 +165,12 @@ def test_sigterm_ends_cleanly_with_143_and_leaves_no_temporaries(tmp_path):
     assert err.decode().strip().splitlines()[-1] == \
         "error: terminated; nothing half-written was kept"
     assert not [f for f in (tmp_path / "d").rglob("*") if f.name.endswith(".part")]
+
+
+def test_a_room_description_that_is_not_text_is_one_error_line(tmp_path, capsys):
+    # a binary file named .toml was a UnicodeDecodeError traceback
+    bad = tmp_path / "room.toml"
+    bad.write_bytes(b"\xff\xfe\x00binary")
+    code, out, err = _run(["predict", str(bad)], capsys)
+    assert code == 2 and out == "" and "not TOML" in err
+    assert len(err.strip().splitlines()) == 1
