@@ -13,13 +13,13 @@ import hashlib
 import json
 import math
 import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
 
 import numpy as np
 
+from measure._files import file_set
 from measure._validate import check_fs
 from measure.errors import AudioFileError
 
@@ -30,6 +30,10 @@ __all__ = [
     "read_json",
     "write_json",
     "write_text",
+    "write_pair",
+    "stage_audio",
+    "check_pair",
+    "read_sidecar",
     "read_text",
     "dumps",
     "sidecar_path",
@@ -117,52 +121,32 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
 def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
     """Open a temporary file beside ``path``; on success fsync and rename it over ``path``.
 
-    On any exception (including KeyboardInterrupt) the temporary file is removed and ``path`` is
-    left as it was. An operating-system error (no such folder, no permission, disk full) becomes
-    an :class:`AudioFileError` that names the folder and what to check.
+    On any exception (including KeyboardInterrupt and SIGTERM) the temporary file is removed and
+    ``path`` is left as it was; temporaries that a killed run left in the folder are removed
+    first (:mod:`measure._files`). An operating-system error (no such folder, no permission,
+    disk full) becomes an :class:`AudioFileError` that names the folder and what to check.
     """
+    if "b" not in mode:
+        raise ValueError("atomic_writer writes bytes; open it with mode 'wb'")
     target = Path(path)
-    with _os_errors(target):
-        target.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
-    try:
-        with _os_errors(target):
-            # mkstemp makes the file owner-only; give it the permissions of any new file
-            umask = os.umask(0)
-            os.umask(umask)
-            with contextlib.suppress(OSError):
-                os.chmod(tmp, 0o666 & ~umask)
-            with os.fdopen(fd, mode) as fh:
-                yield fh
-                fh.flush()
-                os.fsync(fh.fileno())
-            os.replace(tmp, target)
-        _fsync_dir(target.parent)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
+    _refuse_replacing_take(target)
+    with file_set() as files:
+        yield files.open(target)
 
 
-@contextlib.contextmanager
-def _os_errors(target: Path):
-    """Turn an OSError while writing ``target`` into an AudioFileError saying what to check."""
+def _refuse_replacing_take(target: Path) -> None:
+    """Takes are never overwritten: refuse to write a take's WAV or its sidecar."""
+    side = target if target.suffix.lower() == ".json" else sidecar_path(target)
+    if not (target.exists() and side.is_file()):
+        return
     try:
-        yield
-    except OSError as err:
+        with open(side, "rb") as fh:
+            head = fh.read(4096).decode("utf-8", "replace")
+    except OSError:
+        return
+    if '"format": "measure.take/' in head:
         raise AudioFileError(
-            f"cannot write into {target.parent} ({err.strerror or err}); check that it is a "
-            "folder you may write to and that the disk has free space") from err
-
-
-def _fsync_dir(folder: Path) -> None:
-    # Make the rename itself durable where the platform allows it (not on Windows).
-    with contextlib.suppress(OSError, AttributeError):
-        dfd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(dfd)
-        finally:
-            os.close(dfd)
+            f"{target} is a take, and takes are never overwritten; write somewhere else")
 
 
 def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
@@ -186,22 +170,97 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
         If the name ends in neither ``.wav`` nor ``.flac``, the samples hold NaN or Inf, or the
         folder cannot be written.
     """
-    import soundfile as sf
+    target = Path(path)
+    a, fmt = _audio_for_writing(target, x, fs)
+    with atomic_writer(target) as fh:
+        _write_samples(fh, a, fs, subtype, fmt)
+    return target
 
-    fs = check_fs(fs)
+
+def _audio_for_writing(target: Path, x: np.ndarray, fs: int) -> tuple[np.ndarray, str]:
+    check_fs(fs)
     a = np.asarray(x, dtype=np.float64)
     if a.ndim == 1:
         a = a[np.newaxis, :]
     if not np.all(np.isfinite(a)):
-        raise AudioFileError(f"refusing to write NaN or Inf samples to {path}; this is a bug")
-    target = Path(path)
+        raise AudioFileError(f"refusing to write NaN or Inf samples to {target}; this is a bug")
     fmt = {".wav": "WAV", "": "WAV", ".flac": "FLAC"}.get(target.suffix.lower())
     if fmt is None:  # any other name used to get FLAC content whatever it said
         raise AudioFileError(
             f"cannot tell the audio format of {target} from its name; end it in .wav (or .flac)")
-    with atomic_writer(target) as fh:
-        sf.write(fh, a.T, fs, subtype=subtype, format=fmt)
-    return target
+    return a, fmt
+
+
+def _write_samples(fh, a: np.ndarray, fs: int, subtype: str, fmt: str) -> None:
+    import soundfile as sf
+
+    sf.write(fh, a.T, int(fs), subtype=subtype, format=fmt)
+
+
+def stage_audio(files, path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
+                subtype: Subtype = "FLOAT") -> str:
+    """Write samples into ``path``'s temporary in the :class:`measure._files.FileSet`
+    ``files`` and return the SHA-256 of the encoded file (for its sidecar)."""
+    target = Path(path)
+    a, fmt = _audio_for_writing(target, x, fs)
+    fh = files.open(target)
+    _write_samples(fh, a, fs, subtype, fmt)
+    return files.sha256(target)
+
+
+def write_pair(path: str | os.PathLike[str], x: np.ndarray, fs: int, sidecar: dict[str, Any], *,
+               subtype: Subtype = "FLOAT") -> tuple[Path, Path]:
+    """Write a WAV and its JSON sidecar as one set: both appear, or neither changes.
+
+    The sidecar gets ``audio_sha256``, the SHA-256 of the WAV's bytes, so that a WAV and a
+    sidecar that do not belong together are found and refused on reading
+    (:func:`check_pair`). The two are written to temporaries and renamed WAV first, sidecar
+    second, under the folder's lock (:mod:`measure._files`).
+
+    Returns
+    -------
+    (wav, json) : tuple of Path
+    """
+    target = Path(path)
+    side = sidecar_path(target)
+    _refuse_replacing_take(target)
+    with file_set() as files:
+        doc = {**sidecar, "audio_sha256": stage_audio(files, target, x, fs, subtype=subtype)}
+        files.open(side).write((dumps(doc) + "\n").encode("utf-8"))
+    return target, side
+
+
+def check_pair(path: str | os.PathLike[str], sidecar: dict[str, Any], *,
+               side: str | os.PathLike[str] | None = None, sha256: str | None = None) -> None:
+    """Refuse a WAV whose sidecar names another WAV's SHA-256 (``audio_sha256``).
+
+    Sidecars written before the hash was kept have no ``audio_sha256`` and pass. ``sha256``
+    is the WAV's hash when the caller has it already.
+
+    Raises
+    ------
+    AudioFileError
+        If the hash in the sidecar is not the WAV's.
+    """
+    want = sidecar.get("audio_sha256") if isinstance(sidecar, dict) else None
+    if not isinstance(want, str):
+        return
+    if (sha256 or file_sha256(path)) != want:
+        side = sidecar_path(path) if side is None else side
+        raise AudioFileError(
+            f"{path} and its sidecar {side} do not belong together (the sidecar names another "
+            "WAV by its SHA-256: the pair was torn or the WAV edited); restore both from the "
+            "same run, or write them again")
+
+
+def read_sidecar(path: str | os.PathLike[str], *, what: str = "sidecar") -> dict[str, Any] | None:
+    """The sidecar of the audio file ``path`` (None if it has none), checked to belong to it."""
+    side = sidecar_path(path)
+    if not side.exists():
+        return None
+    doc = read_json(side, what=what)
+    check_pair(path, doc, side=side)
+    return doc
 
 
 def _json_default(obj: Any) -> Any:
@@ -311,7 +370,9 @@ def read_sweep(path: str | os.PathLike[str]):
         raise AudioFileError(
             f"the sweep sidecar {side} is missing; keep the .json that `measure sweep` wrote "
             "beside the .wav, or make the sweep again")
-    spec = spec_from_dict(read_json(side), source=str(side))
+    doc = read_json(side)
+    check_pair(path, doc, side=side)
+    spec = spec_from_dict(doc, source=str(side))
     sweep = make_sweep(spec)
     if audio.fs != spec.fs:
         raise AudioFileError(
@@ -330,8 +391,6 @@ def write_ir(path: str | os.PathLike[str], ir, *, sweep, sources: dict[str, Any]
     from measure._version import __version__
     from measure.deconvolve import IR_FORMAT
 
-    wav = write_audio(path, ir.h, ir.fs, subtype="FLOAT")
     doc = {"format": IR_FORMAT, "tool_version": __version__, **ir.to_dict(),
            "sweep": sweep.sidecar()["sweep"], "sources": sources}
-    side = write_json(sidecar_path(wav), doc)
-    return wav, side
+    return write_pair(path, ir.h, ir.fs, doc, subtype="FLOAT")

@@ -69,9 +69,17 @@ class BatchResult:
 
 
 def _sha(path: Path) -> str:
+    """SHA-256 of a file, hashed once per process while its size and time stay the same."""
     from measure.audio_io import file_sha256
 
-    return file_sha256(path)
+    st = os.stat(path)
+    key = (str(Path(path).resolve()), st.st_size, st.st_mtime_ns)
+    if key not in _SHA_SEEN:
+        _SHA_SEEN[key] = file_sha256(path)
+    return _SHA_SEEN[key]
+
+
+_SHA_SEEN: dict[tuple[str, int, int], str] = {}
 
 
 def take_key(wav: Path, sidecar: Path, sweep: Path | None, settings: dict[str, Any]) -> str:
@@ -175,6 +183,7 @@ def _jobs(captures: Path, root: Path, settings: dict[str, Any]) -> tuple[list[di
                 "side": {}, "sweep": None}
         try:
             side = audio_io.read_json(t.json)
+            audio_io.check_pair(t.wav, side, side=t.json, sha256=_sha(t.wav))
             sweep = session.resolve_sweep(side.get("sweep_file"), t.wav.parent)
             if sweep is None:
                 raise ValueError(f"its sidecar names no sweep file that exists "

@@ -1,28 +1,29 @@
 """Rooms, positions and takes on disk: ``CAPTURES/ROOM/POSITION-takeN.wav`` + ``.json``.
 
-A take is claimed, never overwritten: the audio is first written completely to a hidden
-temporary file in the room's folder (:func:`measure.audio_io.write_audio`: temporary file, fsync,
-rename), then hard-linked to the first free ``POSITION-takeN.wav``. The link fails if that name
-exists, so two captures running at once, or a stale listing, can never overwrite a take; the
-next number is tried instead. On file systems without hard links (FAT, exFAT on memory cards) the
-name is checked and the file renamed into place. The sidecar is written atomically right after.
+A take is claimed, never overwritten: the audio is first written completely to a locked hidden
+temporary in the room's folder (:mod:`measure._files`), fsynced, then hard-linked to the first
+free ``POSITION-takeN.wav``. The link fails if that name exists, so two captures running at
+once, or a stale listing, can never overwrite a take; the next number is tried instead. On file
+systems without hard links (FAT, exFAT on memory cards) the name is checked and the file renamed
+into place. The sidecar, which names the WAV's SHA-256, is renamed into place right after. A run
+killed between the two leaves the recording without its sidecar: it is kept (a recording is
+never thrown away) and its number is never reused; ``measure import`` files it again.
 """
 
 from __future__ import annotations
 
-import contextlib
 import errno
 import os
 import re
-import uuid
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from measure import _files
 from measure._version import __version__
-from measure.audio_io import read_json, sidecar_path, write_audio, write_json
+from measure.audio_io import dumps, read_json, sidecar_path, stage_audio
 from measure.errors import AudioFileError, ParameterError
 
 __all__ = [
@@ -107,7 +108,8 @@ def _paths(folder: Path, position: str, n: int) -> tuple[Path, Path]:
 
 
 def _claim(tmp: Path, folder: Path, position: str, start: int) -> tuple[int, Path, Path]:
-    """Give ``tmp`` the first free take name from ``start`` on, never replacing a file."""
+    """Give ``tmp`` the first free take name from ``start`` on, never replacing a file; ``tmp``
+    keeps its own name too (the file set removes it)."""
     n = start
     for _ in range(_MAX_TRIES):
         wav, js = _paths(folder, position, n)
@@ -125,8 +127,6 @@ def _claim(tmp: Path, folder: Path, position: str, start: int) -> tuple[int, Pat
                 raise
             # No hard links here: rename into the free name (checked just above).
             os.replace(tmp, wav)
-            return n, wav, js
-        os.unlink(tmp)
         return n, wav, js
     raise AudioFileError(f"no free take number for {position!r} in {folder}; tidy the folder")
 
@@ -169,24 +169,27 @@ def save_take(captures: str | os.PathLike[str], room: str, position: str, y: np.
     except OSError as err:
         raise AudioFileError(f"cannot create the folder {folder} ({err}); check the path and "
                              "permissions of --captures") from err
-    tmp = folder / f".{position}.{uuid.uuid4().hex}.tmp.wav"
+    a = np.atleast_2d(np.asarray(y))
+    files = _files.FileSet()
     try:
-        # written with the permissions of any new file (audio_io.atomic_writer sets them)
-        write_audio(tmp, y, fs, subtype=subtype)  # type: ignore[arg-type]
-        n, wav, js = _claim(tmp, folder, position, next_take_number(captures, room, position))
-    except OSError as err:
-        raise AudioFileError(f"cannot write the take into {folder} ({err}); check free space and "
-                             "permissions") from err
+        staged = folder / f"{position}.wav"  # a temporary is staged for it, never renamed to it
+        sha = stage_audio(files, staged, a, fs, subtype=subtype)  # type: ignore[arg-type]
+        files.sync(staged)
+        tmp = files.staged_path(staged)
+        try:
+            n, wav, js = _claim(tmp, folder, position, next_take_number(captures, room, position))
+        except OSError as err:
+            raise AudioFileError(f"cannot write the take into {folder} ({err}); check free "
+                                 "space and permissions") from err
     finally:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
+        files.discard()
     side = {"format": TAKE_FORMAT, "tool_version": __version__, "room": room,
             "position": position, "take": n, "audio_file": wav.name, "fs": int(fs),
-            "n_channels": int(np.atleast_2d(y).shape[0]),
-            "n_samples": int(np.atleast_2d(y).shape[1])}
+            "n_channels": int(a.shape[0]), "n_samples": int(a.shape[1])}
     side.update({k: v for k, v in sidecar.items() if k not in side})
+    side["audio_sha256"] = sha
     try:
-        write_json(js, side)
+        _write_sidecar(js, side)
     except OSError as err:
         raise AudioFileError(
             f"the take {wav} is complete but its sidecar {js} could not be written ({err}); "
@@ -198,8 +201,14 @@ def update_sidecar(take: Take, **fields: Any) -> dict[str, Any]:
     """Add fields to a take's sidecar (atomically); the audio is never touched."""
     side = read_json(take.json)
     side.update(fields)
-    write_json(take.json, side)
+    _write_sidecar(take.json, side)
     return side
+
+
+def _write_sidecar(path: Path, doc: dict[str, Any]) -> None:
+    # A take's own sidecar: the one file the take guard of audio_io lets through.
+    with _files.file_set() as files:
+        files.open(path).write((dumps(doc) + "\n").encode("utf-8"))
 
 
 def list_takes(captures: str | os.PathLike[str]) -> list[Take]:

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from _captures import room_folder
 
-from measure import audio_io
+from measure import audio_io, session
 from measure.cli import main
 from measure.virtual import OCTAVE_CENTERS_HZ, VirtualRoom, room_ir
 
@@ -37,9 +37,17 @@ def tree(tmp_path_factory) -> Path:
     # one corrupt take (half its bytes), one clipped take (the converter at full scale)
     bad = root / "captures" / "hall" / "p2-take1.wav"
     bad.write_bytes(bad.read_bytes()[: len(bad.read_bytes()) // 3][:100] + b"\0" * 50)
+    # ... corrupt as recorded: its sidecar names these very bytes (a torn pair is another case)
+    doc = json.loads(audio_io.sidecar_path(bad).read_text())
+    doc["audio_sha256"] = audio_io.file_sha256(bad)
+    audio_io.sidecar_path(bad).write_text(json.dumps(doc))
+    # filed again as take 1 through measure.session, as a clipped recording would be
     clip = root / "captures" / "office" / "p3-take1.wav"
-    a = audio_io.read_audio(clip)
-    audio_io.write_audio(clip, np.clip(a.x * 30.0, -1.0, 1.0), a.fs, subtype="FLOAT")
+    a, side = audio_io.read_audio(clip), audio_io.read_json(audio_io.sidecar_path(clip))
+    clip.unlink()
+    audio_io.sidecar_path(clip).unlink()
+    assert session.save_take(root / "captures", "office", "p3", np.clip(a.x * 30.0, -1.0, 1.0),
+                             a.fs, side).wav == clip
     return root
 
 
@@ -108,6 +116,24 @@ def test_bad_batches_are_one_error_line(tmp_path, capsys):
     code, out, err = run(["batch", str(tmp_path), "--out", str(tmp_path / "empty" / "r")],
                          capsys)
     assert code == 2 and "inside the captures tree" in err
+
+
+def test_a_take_whose_sidecar_names_other_audio_is_left_out_unrecovered(tree, tmp_path,
+                                                                         capsys):
+    # Issue "Never lose a take", all-or-nothing outputs: the sidecar names its WAV's SHA-256, so
+    # a WAV replaced after the session (or a pair torn apart) is refused on reading, with why.
+    import shutil
+
+    captures = tmp_path / "captures"
+    shutil.copytree(tree / "captures", captures)
+    shutil.copytree(tree / "sweeps", tmp_path / "sweeps")
+    shutil.copy(captures / "stairs" / "p2-take1.wav", captures / "stairs" / "p1-take1.wav")
+    code, _, err = run(["batch", str(captures), "--out", str(tmp_path / "r")], capsys)
+    level = json.loads((tmp_path / "r" / "level.json").read_text())
+    left = {(r["room"], r["position"]): r["reason"] for r in level["left_out"]}
+    assert code == 1 and "do not belong together" in left[("stairs", "p1")], err
+    # never recovered: of the 12 takes, 10 are recovered, the corrupt one fails in recovery
+    assert level["work"] == {"recovered": 10, "reused": 0, "failed": 1}
 
 
 def test_a_rerun_redoes_exactly_what_changed(tree, tmp_path, capsys):

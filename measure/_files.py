@@ -1,0 +1,330 @@
+"""All-or-nothing files: temporaries beside their targets, renamed into place together.
+
+A command that writes a set of files (a WAV and its sidecar, say) writes every one of them to a
+hidden temporary in the target's folder, ``.NAME.XXXXXXXX.part``, flushes and fsyncs it, and only
+then renames the temporaries over their targets, in the order they were opened. A rename within
+one folder is atomic, so each file is either its old self or its new self, never torn; for a set
+of more than one file, three more things make the *set* all-or-nothing:
+
+- **Intent.** Before the first rename, a small ``.NAME.XXXXXXXX.commit`` file lists every
+  (temporary, target) pair, fsynced. A run killed between two renames (SIGKILL, power loss)
+  leaves that intent behind with complete temporaries, and the next run in the folder finishes
+  the renames (rolls forward) before it does anything else. An intent that is not complete JSON
+  was never acted on: it is removed with its temporaries, and the old set stands.
+- **Folder lock.** The renames and the roll-forward happen under an exclusive ``flock`` of the
+  folder itself, so two runs writing the same set commit one after the other: the files left are
+  one run's set, never a mix.
+- **Live temporaries are locked.** Each temporary is ``flock``-ed by its writer for as long as it
+  exists, and the lock dies with the process. The clean-up of a folder removes a temporary only
+  when it can take that lock (its writer is gone), so it never removes another run's work in
+  progress, yet removes every temporary a killed run left.
+
+On a system without ``fcntl`` (Windows) there are no locks: the renames still happen in a fixed
+order, and the clean-up removes only temporaries older than an hour.
+
+Every :class:`FileSet` cleans its folders once per process, before writing into them.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import re
+import secrets
+import time
+from collections.abc import Iterator
+from pathlib import Path
+from typing import IO
+
+try:  # POSIX
+    import fcntl
+except ImportError:  # pragma: no cover - Windows
+    fcntl = None  # type: ignore[assignment]
+
+from measure.errors import AudioFileError
+
+__all__ = ["FileSet", "file_set", "clean_folder", "TEMP_SUFFIX", "INTENT_SUFFIX"]
+
+TEMP_SUFFIX = ".part"
+INTENT_SUFFIX = ".commit"
+#: Hidden names this module makes: ``.NAME.<16 hex>.part`` and ``.NAME.<16 hex>.commit``.
+_OURS = re.compile(r"\..+\.[0-9a-f]{16}(" + re.escape(TEMP_SUFFIX) + "|"
+                   + re.escape(INTENT_SUFFIX) + ")")
+#: Without locks a temporary this old is taken as left by a dead run.
+_STALE_WITHOUT_LOCKS_S = 3600.0
+_cleaned: set[str] = set()
+
+
+def _lock(fd: int, *, block: bool = True) -> bool:
+    """An exclusive flock on ``fd``; False if ``block`` is off and another holder has it."""
+    if fcntl is None:
+        return True
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | (0 if block else fcntl.LOCK_NB))
+    except BlockingIOError:
+        return False
+    except OSError:  # a file system without flock (some network mounts): go on unlocked
+        return True
+    return True
+
+
+@contextlib.contextmanager
+def _folder_locked(folder: Path) -> Iterator[None]:
+    """Hold an exclusive lock of ``folder`` itself (no lock file is left behind)."""
+    if fcntl is None:
+        yield
+        return
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        yield
+        return
+    try:
+        _lock(fd)
+        yield
+    finally:
+        os.close(fd)  # closing the descriptor releases the lock
+
+
+def _fsync_dir(folder: Path) -> None:
+    # Make renames durable where the platform allows it (not on Windows).
+    with contextlib.suppress(OSError, AttributeError):
+        dfd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(dfd)
+        finally:
+            os.close(dfd)
+
+
+@contextlib.contextmanager
+def _os_errors(target: Path) -> Iterator[None]:
+    """Turn an OSError while writing ``target`` into an AudioFileError saying what to check."""
+    try:
+        yield
+    except OSError as err:
+        if isinstance(err, AudioFileError):
+            raise
+        raise AudioFileError(
+            f"cannot write into {target.parent} ({err.strerror or err}); check that it is a "
+            "folder you may write to and that the disk has free space") from err
+
+
+def clean_folder(folder: str | os.PathLike[str], *, force: bool = False) -> tuple[int, int]:
+    """Finish the commits and remove the temporaries that killed runs left in ``folder``.
+
+    Returns (sets rolled forward, temporaries removed). Runs once per folder per process
+    unless ``force``; a folder that does not exist is left alone.
+    """
+    p = Path(folder)
+    key = str(p.resolve()) if p.exists() else str(p)
+    if (key in _cleaned and not force) or not p.is_dir():
+        return 0, 0
+    _cleaned.add(key)
+    rolled = removed = 0
+    with _folder_locked(p):
+        try:
+            names = [n for n in os.listdir(p) if _OURS.fullmatch(n)]
+        except OSError:
+            return 0, 0
+        # Intents first: under the folder lock an intent belongs to a run that died mid-commit.
+        for name in sorted(n for n in names if n.endswith(INTENT_SUFFIX)):
+            rolled += _roll_forward(p, name)
+        for name in sorted(n for n in os.listdir(p) if _OURS.fullmatch(n)
+                           and n.endswith(TEMP_SUFFIX)):
+            removed += _remove_if_stale(p / name)
+    return rolled, removed
+
+
+def _roll_forward(folder: Path, name: str) -> int:
+    intent = folder / name
+    try:
+        pairs = json.loads(intent.read_text(encoding="utf-8"))["rename"]
+        pairs = [(str(a), str(b)) for a, b in pairs]
+        if any(os.sep in a or os.sep in b or "/" in a or "/" in b for a, b in pairs):
+            raise ValueError("names only")
+    except (OSError, ValueError, KeyError, TypeError):
+        # Never completed, so nothing was renamed: the temporaries go as stale ones.
+        with contextlib.suppress(OSError):
+            os.unlink(intent)
+        return 0
+    done = 1
+    for tmp, target in pairs:
+        try:
+            if (folder / tmp).exists():
+                os.replace(folder / tmp, folder / target)
+        except OSError:  # cannot be finished: what is left goes as stale temporaries
+            done = 0
+    _fsync_dir(folder)
+    with contextlib.suppress(OSError):
+        os.unlink(intent)
+    _fsync_dir(folder)
+    return done
+
+
+def _remove_if_stale(path: Path) -> int:
+    try:
+        fd = os.open(path, os.O_RDONLY)
+    except OSError:
+        return 0
+    try:
+        if fcntl is None:
+            stale = time.time() - os.fstat(fd).st_mtime > _STALE_WITHOUT_LOCKS_S
+        else:
+            stale = _lock(fd, block=False)
+        if stale:
+            with contextlib.suppress(OSError):
+                os.unlink(path)
+                return 1
+    finally:
+        os.close(fd)
+    return 0
+
+
+class FileSet:
+    """Files staged as locked temporaries beside their targets and committed together.
+
+    Use through :func:`file_set`; :meth:`open` gives a binary file to write each target into.
+    All targets must be in one folder (the unit that a rename and a lock make atomic).
+    """
+
+    def __init__(self) -> None:
+        self._staged: list[tuple[Path, Path, int, IO[bytes]]] = []  # (tmp, target, fd, fh)
+        self._folder: Path | None = None
+
+    def open(self, path: str | os.PathLike[str]) -> IO[bytes]:
+        """A binary file to write ``path``'s new content into (a locked temporary beside it)."""
+        target = Path(path)
+        folder = target.parent
+        if self._folder is None:
+            self._folder = folder
+        elif os.path.abspath(folder) != os.path.abspath(self._folder):
+            raise ValueError(f"a file set lives in one folder: {target} is not in {self._folder}")
+        if any(t == target for _, t, _, _ in self._staged):
+            raise ValueError(f"{target} is twice in one file set")
+        with _os_errors(target):
+            folder.mkdir(parents=True, exist_ok=True)
+            clean_folder(folder)
+            tmp, fd = self._new_temporary(target)
+        # mkstemp-like files are owner-only; give it the permissions of any new file
+        umask = os.umask(0)
+        os.umask(umask)
+        with contextlib.suppress(OSError):
+            os.fchmod(fd, 0o666 & ~umask)
+        fh = os.fdopen(os.dup(fd), "w+b")
+        self._staged.append((tmp, target, fd, fh))
+        return fh
+
+    @staticmethod
+    def _new_temporary(target: Path) -> tuple[Path, int]:
+        # The clean-up of another run may remove a new temporary before its lock is taken; the
+        # inode check catches that and a fresh name is tried.
+        for _ in range(100):
+            tmp = target.parent / f".{target.name}.{secrets.token_hex(8)}{TEMP_SUFFIX}"
+            fd = os.open(tmp, os.O_RDWR | os.O_CREAT | os.O_EXCL, 0o600)
+            _lock(fd)
+            try:
+                if os.stat(tmp).st_ino == os.fstat(fd).st_ino:
+                    return tmp, fd
+            except FileNotFoundError:
+                pass
+            os.close(fd)
+        raise AudioFileError(f"cannot make a temporary file in {target.parent}; check the folder")
+
+    def staged_path(self, path: str | os.PathLike[str]) -> Path:
+        """The temporary that holds ``path``'s new content."""
+        target = Path(path)
+        for tmp, t, _, _ in self._staged:
+            if t == target:
+                return tmp
+        raise ValueError(f"{target} is not in this file set")
+
+    def sync(self, path: str | os.PathLike[str]) -> None:
+        """Flush and fsync ``path``'s temporary (before it is linked elsewhere)."""
+        tmp = self.staged_path(path)
+        for t, _, _, fh in self._staged:
+            if t == tmp:
+                fh.flush()
+                os.fsync(fh.fileno())
+
+    def sha256(self, path: str | os.PathLike[str]) -> str:
+        """Hex SHA-256 of what has been written so far for ``path``."""
+        target = Path(path)
+        for _, t, fd, fh in self._staged:
+            if t == target:
+                fh.flush()
+                h = hashlib.sha256()
+                offset = 0
+                while block := os.pread(fd, 1 << 20, offset):
+                    h.update(block)
+                    offset += len(block)
+                return h.hexdigest()
+        raise ValueError(f"{target} is not in this file set")
+
+    def commit(self) -> list[Path]:
+        """fsync every temporary, then rename them over their targets in order."""
+        if not self._staged:
+            return []
+        folder = self._folder
+        assert folder is not None
+        first = self._staged[0][1]
+        for _, target, _, _ in self._staged:
+            if target.is_dir():  # the one rename that fails for sure: found before any is done
+                raise AudioFileError(f"{target} is a folder; give a file name to write, or move "
+                                     "the folder away")
+        with _os_errors(first):
+            for _, _, _, fh in self._staged:
+                fh.flush()
+                os.fsync(fh.fileno())
+                fh.close()
+            if len(self._staged) == 1:
+                tmp, target = self._staged[0][:2]
+                os.replace(tmp, target)
+            else:
+                with _folder_locked(folder):
+                    intent = folder / f".{first.name}.{secrets.token_hex(8)}{INTENT_SUFFIX}"
+                    doc = {"rename": [[t.name, g.name] for t, g, _, _ in self._staged]}
+                    fd = os.open(intent, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+                    try:
+                        os.write(fd, json.dumps(doc).encode("utf-8"))
+                        os.fsync(fd)
+                    finally:
+                        os.close(fd)
+                    _fsync_dir(folder)
+                    for tmp, target, _, _ in self._staged:
+                        os.replace(tmp, target)
+                    _fsync_dir(folder)
+                    os.unlink(intent)
+            _fsync_dir(folder)
+        targets = [g for _, g, _, _ in self._staged]
+        self._release(unlink=False)
+        return targets
+
+    def discard(self) -> None:
+        """Remove every temporary still staged (the targets are left as they were)."""
+        self._release(unlink=True)
+
+    def _release(self, *, unlink: bool) -> None:
+        for tmp, _, fd, fh in self._staged:
+            with contextlib.suppress(OSError):
+                fh.close()
+            if unlink:
+                with contextlib.suppress(FileNotFoundError, OSError):
+                    os.unlink(tmp)
+            with contextlib.suppress(OSError):
+                os.close(fd)
+        self._staged = []
+
+
+@contextlib.contextmanager
+def file_set() -> Iterator[FileSet]:
+    """Stage files with :meth:`FileSet.open`; on leaving the block without an exception they are
+    committed together, on any exception (KeyboardInterrupt, SIGTERM included) discarded."""
+    fs = FileSet()
+    try:
+        yield fs
+        fs.commit()
+    finally:
+        fs.discard()
+
