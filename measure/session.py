@@ -23,7 +23,7 @@ import numpy as np
 
 from measure import _files
 from measure._version import __version__
-from measure.audio_io import dumps, read_json, sidecar_path, stage_audio
+from measure.audio_io import dumps, file_sha256, read_json, sidecar_path, stage_audio
 from measure.errors import AudioFileError, ParameterError
 
 __all__ = [
@@ -249,16 +249,26 @@ def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[s
     return sorted(out, key=lambda td: td[0].position)
 
 
-def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str]) -> Path | None:
+def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
+                  sha256: str | None = None) -> Path | None:
     """The sweep file a take's sidecar names (``sweep_file``): as given, or beside the
     captures tree (``CAPTURES/../NAME``, ``CAPTURES/../sweeps/NAME``, ``CAPTURES/sweeps/NAME``);
-    None when none exists."""
+    None when none exists.
+
+    With the take's ``sweep_sha256``: where the file of that name now holds another sweep
+    (replaced with ``measure sweep --force``), the one kept beside it,
+    ``STEM.replaced-XXXXXXXX.wav`` with the hash's first 8 digits, when it is there.
+    """
     if not named:
         return None
     p, folder = Path(named), Path(room_folder)
     for cand in (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
                  folder.parent / "sweeps" / p.name):
         if cand.exists():
+            if isinstance(sha256, str) and len(sha256) >= 8:
+                kept = cand.with_name(f"{cand.stem}.replaced-{sha256[:8]}{cand.suffix}")
+                if kept.exists() and file_sha256(kept) == sha256 != file_sha256(cand):
+                    return kept
             return cand
     return None
 

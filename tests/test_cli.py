@@ -133,6 +133,34 @@ def test_a_clipped_capture_is_recovered_with_a_warning(tmp_path, sweep_file, cap
     assert "warning:" in err and "clipped" in err
 
 
+def test_a_sweep_that_takes_name_is_never_replaced_without_force(tmp_path, capsys):
+    # Issue "Never lose a take", inputs are sacred: `measure sweep` silently replaced a sweep
+    # that earlier takes name by SHA-256. The same sweep again is left alone; another one is
+    # refused; with --force the old pair is kept beside it, where a take's sweep_sha256 finds it.
+    from measure import audio_io, session
+
+    out = tmp_path / "sweeps" / "s.wav"
+    assert run(["sweep", str(out), "--duration", "1", "--gap", "0.5"], capsys)[0] == 0
+    old = {p.name: p.read_bytes() for p in out.parent.iterdir()}
+    old_sha = audio_io.file_sha256(out)
+    code, _, err = run(["sweep", str(out), "--duration", "1", "--gap", "0.5"], capsys)
+    assert code == 0 and "left as it is" in err
+    code, _, err = run(["sweep", str(out), "--duration", "2"], capsys)
+    assert code == 2 and err.count("\n") == 1 and "--force" in err
+    assert {p.name: p.read_bytes() for p in out.parent.iterdir()} == old
+    code, _, err = run(["sweep", str(out), "--duration", "2", "--force"], capsys)
+    kept = out.with_name(f"s.replaced-{old_sha[:8]}.wav")
+    assert code == 0 and kept.name in err
+    assert kept.read_bytes() == old["s.wav"]
+    assert audio_io.sidecar_path(kept).read_bytes() == old["s.json"]
+    assert audio_io.read_sweep(kept).spec.duration_s == 1.0  # still a whole, readable pair
+    assert audio_io.read_sweep(out).spec.duration_s == 2.0
+    room = tmp_path / "captures" / "hall"
+    assert session.resolve_sweep("s.wav", room, sha256=old_sha) == kept
+    assert session.resolve_sweep("s.wav", room, sha256=audio_io.file_sha256(out)) == out
+    assert session.resolve_sweep("s.wav", room) == out
+
+
 @pytest.mark.parametrize("argv, match", [
     (["--f2", "30000"], "exceeds Nyquist"),
     (["--f1", "5000", "--f2", "1000"], "must be below"),

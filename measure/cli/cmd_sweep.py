@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import argparse
+import os
+from pathlib import Path
 
 NAME = "sweep"
 HELP = "write an exponential sine sweep file (WAV + JSON sidecar) to play in the room"
@@ -13,7 +15,12 @@ each), and OUT.json beside it with every number needed to rebuild the signal and
 The default level is low (-20 dBFS peak). Before playing anything loud: wear hearing
 protection near loudspeakers, start at low volume and raise it step by step, remember that
 sweeps at high level can destroy tweeters, keep people and animals out of the room, and follow
-local rules on noise."""
+local rules on noise.
+
+Takes name their sweep by file name and SHA-256, so an existing sweep is never replaced
+silently: writing the same sweep again leaves it as it is; another one needs --force, and the
+old pair is then kept beside the new one as OUT.replaced-XXXXXXXX.wav/.json (its hash's first
+8 hex digits), where the takes that used it still find it."""
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -41,6 +48,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="half-Hann fade-in in seconds (default: a tenth of the first octave)")
     p.add_argument("--fade-out", type=float, default=0.002, metavar="S",
                    help="half-Hann fade-out in seconds (default 0.002)")
+    p.add_argument("--force", action="store_true",
+                   help="replace an existing OUT.wav that holds another sweep (the old pair is "
+                        "kept beside it as OUT.replaced-XXXXXXXX.wav)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -63,8 +73,14 @@ def run(args: argparse.Namespace) -> int:
         level_dbfs=DEFAULT_LEVEL_DBFS if args.level is None else args.level,
         fade_in_s=fade_in, fade_out_s=args.fade_out)
     sweep = make_sweep(spec)
-    wav = audio_io.write_audio(args.out, sweep.program, spec.fs, subtype="FLOAT")
-    side = audio_io.write_json(audio_io.sidecar_path(wav), sweep.sidecar())
+    if _holds_this_sweep(args.out, sweep):
+        info(f"{args.out} already holds this very sweep; left as it is")
+        return 0
+    kept = _keep_the_old_one(args.out, force=args.force)
+    wav, side = audio_io.write_pair(args.out, sweep.program, spec.fs, sweep.sidecar(),
+                                    subtype="FLOAT")
+    if kept is not None:
+        info(f"kept the sweep it replaces as {kept}; takes that used it still find it there")
     total_s = spec.n_total / spec.fs
     info(f"wrote {wav} ({total_s:.2f} s: {spec.repeats} x {spec.duration_s:g} s sweep "
          f"{spec.f1_hz:g}-{spec.f2_hz:g} Hz at {spec.level_dbfs:g} dBFS peak) and {side}")
@@ -72,6 +88,45 @@ def run(args: argparse.Namespace) -> int:
         info("note: a gap under 1 s cuts the tail of most rooms; use --gap of at least the "
              "reverberation time")
     return 0
+
+
+def _holds_this_sweep(out: str, sweep) -> bool:
+    """True if ``out`` and its sidecar are already exactly ``sweep``."""
+    from measure import audio_io
+    from measure.errors import MeasureError
+
+    if not Path(out).is_file():
+        return False
+    try:
+        old = audio_io.read_sweep(out)
+    except MeasureError:
+        return False
+    return old.spec == sweep.spec
+
+
+def _keep_the_old_one(out: str, *, force: bool) -> Path | None:
+    """Move an existing ``out`` pair aside as ``STEM.replaced-XXXXXXXX`` (``--force``), or
+    refuse; None when there is nothing to keep."""
+    from measure import audio_io
+    from measure.errors import ParameterError
+
+    wav = Path(out)
+    side = audio_io.sidecar_path(wav)
+    if not wav.exists() and not side.exists():
+        return None
+    if not force:
+        raise ParameterError(
+            f"{wav} already exists and holds another sweep, which earlier takes may name by its "
+            "SHA-256; give another name, or --force to replace it (the old one is kept beside "
+            "it)")
+    if wav.is_dir() or side.is_dir():
+        raise ParameterError(f"{wav} or {side} is a folder; give the sweep another name")
+    tag = audio_io.file_sha256(wav if wav.exists() else side)[:8]
+    kept = wav.with_name(f"{wav.stem}.replaced-{tag}.wav")
+    for old, new in ((side, audio_io.sidecar_path(kept)), (wav, kept)):
+        if old.exists():
+            os.replace(old, new)
+    return kept
 
 
 def default_fade_in_s(f1_hz: float, f2_hz: float, duration_s: float) -> float:
