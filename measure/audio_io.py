@@ -99,13 +99,32 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
         raise AudioFileError(f"{p} does not exist; check the path")
     if p.is_dir():
         raise AudioFileError(f"{p} is a folder, not an audio file; give a WAV or FLAC file")
+    # libsndfile's decoders (mpg123 for a garbage .mp3) print notes straight to file
+    # descriptor 2, around the one error line (issue 12): point fd 2 at /dev/null while the
+    # file is opened and read, and restore it whatever happens
+    import sys
+
+    with contextlib.suppress(AttributeError, ValueError, OSError):
+        sys.stderr.flush()
     try:
+        saved_fd2: int | None = os.dup(2)
+    except OSError:  # no file descriptor 2: nothing to quiet
+        saved_fd2 = None
+    try:
+        if saved_fd2 is not None:
+            null_fd = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(null_fd, 2)
+            os.close(null_fd)
         with sf.SoundFile(str(p)) as f:  # opened once: format, rate and samples
             subtype, fs = f.subtype, f.samplerate
             data = f.read(dtype="float64", always_2d=True)
     except (RuntimeError, sf.LibsndfileError, OSError, ValueError) as err:
         raise AudioFileError(
             f"cannot read {p} as audio ({err}); give a WAV or FLAC file") from err
+    finally:
+        if saved_fd2 is not None:
+            os.dup2(saved_fd2, 2)
+            os.close(saved_fd2)
     if data.shape[0] == 0:
         raise AudioFileError(f"{p} holds no samples; re-record or re-export it")
     x = np.ascontiguousarray(data.T)
