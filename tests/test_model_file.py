@@ -124,3 +124,92 @@ def test_rendering_at_other_rates_keeps_the_room_figures(fs):
         if c.band in ("125", "250", "500", "1k", "2k", "4k") and c.parameter in (
                 "edt_s", "t30_s", "c80_db"):
             assert c.difference_jnd is not None and abs(c.difference_jnd) < 0.1, c
+
+
+# issue 12: a model file with unknown keys or absurd values is refused where it enters, one line
+# naming the key and the allowed range (the bounds are modelfile's MAX_* constants).
+@pytest.mark.parametrize("mutate, match", [
+    (lambda d: d.update(ecoes=[]), r"unknown key 'ecoes' in the top level.*typo for 'echoes'.*"
+                                   r"known keys are format"),
+    (lambda d: d["late"].update(t60=[1.0]), r"unknown key 't60' in late.*'t60_s'"),
+    (lambda d: d["echoes"][0].update(dealy_s=0.1), r"unknown key 'dealy_s' in echoes\[0\]"),
+    (lambda d: d["coloration"].update(order=1e9), r"coloration.order=1000000000.0 .*within 1 … 64"),
+    (lambda d: d["coloration"].update(order=3), r"coloration.zeros holds 2 roots for order 3"),
+    (lambda d: d["coloration"].update(order=True), r"coloration.order=True .*not a number"),
+    (lambda d: d["echoes"][0].update(delay_s=1e9), r"echoes\[0\].delay_s=1000000000.0 s .*"
+                                                   r"<= 120 s"),
+    (lambda d: d["echoes"][0].update(gain=1e9), r"echoes\[0\].gain=.*-100 … 100"),
+    (lambda d: d["late"]["t60_s"].__setitem__(0, 1e7), r"late.t60_s\[0\]=10000000.0 s .*<= 60 s"),
+    (lambda d: d["direct"].update(delay_s=1e6), r"direct.delay_s=.*within 0 … 30 s"),
+    (lambda d: d["direct"].update(gain=False), r"direct.gain=False .*not a number"),
+    (lambda d: d["direct"].update(gain="1"), r"direct.gain='1' .*not a number"),
+    (lambda d: d["late"]["level_db"].__setitem__(0, 1e5), r"late.level_db\[0\]=.*200 dB"),
+    (lambda d: d["late"].update(start_s=-0.1), r"late.start_s=-0.1 s .*within 0 … 10 s"),
+    (lambda d: d["late"].update(delays_s=[0.01] * 3), r"3 delay lines.*power of two"),
+    (lambda d: d["late"]["delays_s"].__setitem__(0, 1e3), r"late.delays_s\[0\]=1000.0 s"),
+    (lambda d: d["late"]["band_centers_hz"].__setitem__(7, 30000.0),
+     r"band_centers_hz\[7\]=30000.0 Hz.*Nyquist"),
+    (lambda d: d["late"]["envelope_db"][0].__setitem__(0, 1e3), r"envelope_db\[0\]\[0\]=1000.0 dB"),
+    (lambda d: d.update(fit_fs=10 ** 400), r"fit_fs=1000.* not a finite number"),
+    (lambda d: d.update(fit_fs=1e9), r"fit_fs=1000000000.0 Hz .*8000 … 384000 Hz"),
+    (lambda d: d.update(mixing_time_s=1e9), r"mixing_time_s=.*within 0 … 120 s"),
+    (lambda d: d.update(source="here"), r"source in the model file must be an object or null"),
+    (lambda d: d.update(i3dl2=[1]), r"i3dl2 in the model file must be an object or null"),
+    (lambda d: d["coloration"].update(smoothing_fraction="3"), r"smoothing_fraction='3'"),
+    (lambda d: d["coloration"]["sos"][0].__setitem__(3, 0.0), r"sos\[0\]\[3\]=0.0 must be 1"),
+    (lambda d: d["coloration"].update(method="magic"), r"coloration.method='magic'"),
+    (lambda d: d["coloration"]["zeros"].__setitem__(0, [3.0, 0.0]), r"outside the unit circle"),
+    (lambda d: d.update(version=True), r"version True"),
+])
+def test_absurd_or_misspelt_model_files_are_refused(mutate, match):
+    d = json.loads(json.dumps(_model().to_dict()))
+    mutate(d)
+    with pytest.raises(ParameterError, match=match):
+        model_from_dict(d)
+
+
+def test_i3dl2_set_of_a_model_file_is_checked_against_the_guideline():
+    # issue 12: the I3DL2 set in a model file is held to the guideline's ranges (I3DL2_RANGES):
+    # DecayTime 0.1-20 s, so 1e7 s is refused with the range in the message.
+    from measure.model.i3dl2 import I3DL2_RANGES
+
+    d = json.loads(json.dumps(_model().to_dict()))
+    d["i3dl2"] = {"values": {k: lo for k, (lo, _, _) in I3DL2_RANGES.items()}, "notes": []}
+    assert model_from_dict(d).i3dl2["values"]["DecayTime"] == 0.1
+    d["i3dl2"]["values"]["DecayTime"] = 1e7
+    with pytest.raises(ParameterError, match=r"i3dl2.values.DecayTime=10000000.0 s .*0.1 … 20 s"):
+        model_from_dict(d)
+
+
+def test_the_longest_model_that_loads_renders_by_default_within_the_render_limit():
+    # issue 12: a model's decay of 1e7 s used to reach `measure render` and be reported as a
+    # --seconds value the user never gave. Every bound of the loader at its maximum (direct
+    # delay 30 s, late start 10 s, T60 60 s) gives default_seconds = 30 + 10 + 1.2·60 = 112 s
+    # (derived from render.default_seconds), within the 120 s the render command allows.
+    from measure.model.modelfile import (
+        MAX_DIRECT_DELAY_S,
+        MAX_LATE_START_S,
+        MAX_RENDER_S,
+        MAX_T60_S,
+    )
+    from measure.model.render import default_seconds
+
+    d = json.loads(json.dumps(_model().to_dict()))
+    d["direct"]["delay_s"] = MAX_DIRECT_DELAY_S
+    d["late"]["start_s"] = MAX_LATE_START_S
+    d["late"]["t60_s"] = [MAX_T60_S] * len(d["late"]["t60_s"])
+    seconds = default_seconds(model_from_dict(d))
+    assert seconds == pytest.approx(112.0, abs=1e-9)
+    assert seconds <= MAX_RENDER_S
+
+
+@pytest.mark.parametrize("room", [0, 1, 2, 3])
+def test_files_written_by_the_fit_load_unchanged(room):
+    # issue 12: the stricter loader must take every model the fit writes (here for the four
+    # demo rooms of measure.virtual) and give back the same document, key for key.
+    from measure.model.fit import fit_model
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    res = fit_model(room_ir(DEMO_ROOMS[room], FS), FS)
+    doc = json.loads(json.dumps(res.model.to_dict()))
+    assert model_from_dict(doc).to_dict() == doc
