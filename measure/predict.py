@@ -269,6 +269,19 @@ def _coefficients(value: Any, what: str) -> tuple[float, ...]:
     return _eight(out)
 
 
+#: Room dimensions accepted, m: below 0.1 m a box is no room (a 1:10 scale model of a small
+#: room is still 0.3 m), above 1000 m none was ever built (the largest halls are a few hundred
+#: metres long), and the image sources and the tail would describe nothing real.
+DIMENSION_RANGE_M = (0.1, 1000.0)
+
+
+def _real(v: Any, what: str, unit: str) -> float:
+    """``v`` as a finite float; bools and text are not numbers (TOML "3" is a string)."""
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise ParameterError(f"{what}={v!r} is not a finite number; give it in {unit}")
+    return float(v)
+
+
 def _triple(value: Any, what: str) -> tuple[float, float, float]:
     if isinstance(value, (str, bytes)) or not isinstance(value, Sequence) or len(value) != 3:
         raise ParameterError(f"{what}={value!r} is not three numbers; give [x, y, z] in metres")
@@ -312,15 +325,18 @@ class ExtraAbsorption:
             if isinstance(a, (str, bytes)) or not isinstance(a, Sequence) or len(a) not in (6, 8):
                 raise ParameterError(f"extra absorption {self.name!r}: area_m2={a!r} is not 6 or "
                                      "8 numbers; give m² per octave")
-            vals = tuple(check_nonnegative(v, f"extra absorption {self.name!r} area_m2",
-                                           unit="m²") for v in a)
+            vals = tuple(check_nonnegative(_real(v, f"extra absorption {self.name!r} area_m2",
+                                                 "m²"),
+                                           f"extra absorption {self.name!r} area_m2", unit="m²")
+                         for v in a)
             object.__setattr__(self, "area_m2", _eight(vals))
         else:
             if self.material is None or self.surface_m2 is None:
                 raise ParameterError(f"extra absorption {self.name!r} gives only one of material "
                                      "and surface_m2; give both")
+            what = f"extra absorption {self.name!r} surface_m2"
             object.__setattr__(self, "surface_m2", check_positive(
-                self.surface_m2, f"extra absorption {self.name!r} surface_m2", unit="m²"))
+                _real(self.surface_m2, what, "m²"), what, unit="m²"))
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -363,8 +379,13 @@ class RoomDescription:
 
     def __post_init__(self) -> None:
         dims = _triple(self.dimensions_m, "dimensions_m")
+        lo, hi = DIMENSION_RANGE_M
         for axis, v in zip("xyz", dims, strict=True):
             check_positive(v, f"room dimension L{axis}", unit="m")
+            if not lo <= v <= hi:
+                raise ParameterError(
+                    f"room dimension L{axis}={v:g} m is outside {lo:g}..{hi:g} m (smaller is no "
+                    "room, larger was never built); give the room's size in metres")
         object.__setattr__(self, "dimensions_m", dims)
         user = {}
         for key, vals in dict(self.materials).items():
@@ -398,6 +419,14 @@ class RoomDescription:
             if e.material is not None and e.material not in known:
                 raise ParameterError(f"unknown material {e.material!r} in extra absorption "
                                      f"{e.name!r}; use one of {', '.join(known)}")
+            s_total = 2.0 * (dims[0] * dims[1] + dims[1] * dims[2] + dims[0] * dims[2])
+            biggest = max(e.area_m2) if e.area_m2 is not None else e.surface_m2
+            if biggest > s_total:
+                what = "area_m2" if e.area_m2 is not None else "surface_m2"
+                raise ParameterError(
+                    f"extra absorption {e.name!r}: {what} {biggest:g} m² exceeds the room's whole "
+                    f"surface ({s_total:g} m²); nothing inside a room absorbs like more than all "
+                    "its walls, so check the unit (m², per octave) and the value")
         object.__setattr__(self, "extra", extra)
         for what in ("source_m", "receiver_m"):
             p = _triple(getattr(self, what), what)
@@ -410,11 +439,13 @@ class RoomDescription:
         if math.dist(self.source_m, self.receiver_m) < 1e-3:
             raise ParameterError("source_m and receiver_m coincide; put the receiver at least "
                                  "a few centimetres from the source")
-        if not isinstance(self.temperature_c, (int, float)) or not (
+        if isinstance(self.temperature_c, bool) or not isinstance(
+                self.temperature_c, (int, float)) or not (
                 -50.0 <= self.temperature_c <= 60.0):
             raise ParameterError(f"temperature_c={self.temperature_c!r} is outside -50..60 °C; "
                                  "give the room's air temperature in °C")
-        if not isinstance(self.humidity_percent, (int, float)) or not (
+        if isinstance(self.humidity_percent, bool) or not isinstance(
+                self.humidity_percent, (int, float)) or not (
                 0.0 <= self.humidity_percent <= 100.0):
             raise ParameterError(f"humidity_percent={self.humidity_percent!r} is outside "
                                  "0..100 %; give the relative humidity in %")
@@ -568,6 +599,9 @@ def room_from_dict(doc: Mapping[str, Any]) -> RoomDescription:
             raise ParameterError(f"extra #{i + 1} is not a table; write it as [[extra]]")
         _refuse_unknown(e, _EXTRA_KEYS, f"[[extra]] #{i + 1}")
         ename = e.get("name", f"extra #{i + 1}")
+        if not isinstance(ename, str):
+            raise ParameterError(f"[[extra]] #{i + 1}: name = {ename!r} is not a text; give it "
+                                 "a name in quotes")
         area = e.get("area_m2")
         if area is not None and not isinstance(area, (list, tuple)):
             raise ParameterError(f"[[extra]] {ename!r}: area_m2 = {area!r} is not a list; give "

@@ -311,3 +311,29 @@ def test_load_room_reads_toml_and_names_the_file_in_errors(tmp_path):
     broken.write_text("name = \n")
     with pytest.raises(ParameterError, match="not valid TOML"):
         load_room(broken)
+
+
+# issue 12: absurd sizes and values that are not numbers are refused where the room description
+# enters, one line naming the key and the allowed range (DIMENSION_RANGE_M and the room's own
+# surface for extra absorption: 2·(5·4 + 4·3 + 5·3) = 94 m² for GOOD, derived).
+@pytest.mark.parametrize("doc, match", [
+    (_with(dimensions_m=[5.0, 4.0, 1e9]), r"Lz=1e\+09 m is outside 0.1..1000 m"),
+    (_with(dimensions_m=[0.01, 4.0, 3.0], source_m=[0.005, 1.0, 1.5],
+           receiver_m=[0.005, 3.0, 1.5]), r"Lx=0.01 m is outside 0.1..1000 m"),
+    (_with(dimensions_m=[5.0, float("nan"), 3.0]), r"dimensions_m=.*non-number"),
+    (_with(temperature_c=True), r"temperature_c=True"),
+    (_with(humidity_percent=False), r"humidity_percent=False"),
+    (_with(temperature_c=float("nan")), r"temperature_c=nan"),
+    (_with(extra=[{"name": "x", "area_m2": ["1", 1, 1, 1, 1, 1]}]), r"area_m2='1' is not a finite"),
+    (_with(extra=[{"name": "x", "area_m2": [True, 1, 1, 1, 1, 1]}]), r"area_m2=True"),
+    (_with(extra=[{"name": "x", "area_m2": [1e9, 1, 1, 1, 1, 1]}]),
+     r"area_m2 1e\+09 m² exceeds the room's whole surface \(94 m²\)"),
+    (_with(extra=[{"name": "x", "material": "carpet_heavy_on_concrete", "surface_m2": "3"}]),
+     r"surface_m2='3' is not a finite number"),
+    (_with(extra=[{"name": "x", "material": "carpet_heavy_on_concrete",
+                   "surface_m2": float("inf")}]), r"surface_m2=inf"),
+    (_with(extra=[{"name": 3, "area_m2": [1, 1, 1, 1, 1, 1]}]), r"name = 3 is not a text"),
+])
+def test_absurd_room_descriptions_are_refused_with_the_range(doc, match):
+    with pytest.raises(ParameterError, match=match):
+        room_from_dict(doc)
