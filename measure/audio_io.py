@@ -31,6 +31,7 @@ __all__ = [
     "write_json",
     "write_text",
     "write_pair",
+    "write_pairs",
     "stage_audio",
     "check_pair",
     "read_sidecar",
@@ -240,13 +241,23 @@ def write_pair(path: str | os.PathLike[str], x: np.ndarray, fs: int, sidecar: di
     -------
     (wav, json) : tuple of Path
     """
-    target = Path(path)
-    side = sidecar_path(target)
-    _refuse_replacing_take(target)
+    return write_pairs([(path, x, fs, sidecar)], subtype=subtype)[0]
+
+
+def write_pairs(pairs, *, subtype: Subtype = "FLOAT") -> list[tuple[Path, Path]]:
+    """Write several (path, samples, fs, sidecar) pairs of one folder as one set
+    (:func:`write_pair` for each, all appearing together)."""
+    out = []
     with file_set() as files:
-        doc = {**sidecar, "audio_sha256": stage_audio(files, target, x, fs, subtype=subtype)}
-        files.open(side).write((dumps(doc) + "\n").encode("utf-8"))
-    return target, side
+        for path, x, fs, sidecar in pairs:
+            target = Path(path)
+            _refuse_replacing_take(target)
+            sha = stage_audio(files, target, x, fs, subtype=subtype)
+            side = sidecar_path(target)
+            files.open(side).write((dumps({**sidecar, "audio_sha256": sha}) + "\n")
+                                   .encode("utf-8"))
+            out.append((target, side))
+    return out
 
 
 def check_pair(path: str | os.PathLike[str], sidecar: dict[str, Any], *,

@@ -197,6 +197,15 @@ def _jobs(captures: Path, root: Path, settings: dict[str, Any]) -> tuple[list[di
     return jobs, bad
 
 
+def _clean_tree(root: Path) -> None:
+    """Finish or remove what a killed earlier run left anywhere in the results folder (sets cut
+    between renames, temporaries): a rerun may reuse a folder without writing into it."""
+    from measure._files import clean_folder
+
+    for folder, _, _ in os.walk(root):
+        clean_folder(folder)
+
+
 def _relative(path: Path, root: Path) -> str:
     """``path`` relative to the results folder (level.json's paths are)."""
     return os.path.relpath(Path(path).resolve(), Path(root).resolve())
@@ -249,6 +258,7 @@ def run_batch(captures: str | os.PathLike[str], out: str | os.PathLike[str], *,
         raise AudioFileError(f"cannot create the results folder {root} "
                              f"({err.strerror or err}); give --out a folder you may write to"
                              ) from err
+    _clean_tree(root)
     fresh = []
     for job in todo:
         done = _reuse(job)
@@ -375,9 +385,8 @@ def _export_task(task: dict[str, Any]) -> dict[str, Any]:
         from measure.export import convolution_ir
 
         conv = convolution_ir(h, fs, audio_io.read_sweep(task["sweep"]).spec)
-        path = audio_io.write_audio(root / rel / "convolution-ir.wav", conv.h, fs,
-                                    subtype="FLOAT")
-        audio_io.write_json(audio_io.sidecar_path(path), conv.sidecar())
+        audio_io.write_pair(root / rel / "convolution-ir.wav", conv.h, fs, conv.sidecar(),
+                            subtype="FLOAT")
         return {"convolution_ir": {"wav": str(rel / "convolution-ir.wav"), **conv.sidecar()}}
     if task["kind"] == "render":
         rate = task["rate"]
@@ -391,11 +400,12 @@ def _export_task(task: dict[str, Any]) -> dict[str, Any]:
     dry = dry_demo_sound(fs)
     pair = loudness_matched(auralize(dry, fs, h),
                             auralize(dry, fs, render_model(model, fs, h.size / fs)), fs)
-    listening = {}
+    listening, pairs = {}, []
     for which, x, stem in (("a", pair.a, "measured"), ("b", pair.b, "modelled")):
-        p = audio_io.write_audio(root / rel / "listen" / f"{stem}.wav", x, fs, subtype="FLOAT")
-        audio_io.write_json(audio_io.sidecar_path(p), pair.sidecar(which))
+        p = root / rel / "listen" / f"{stem}.wav"
+        pairs.append((p, x, fs, pair.sidecar(which)))
         listening[stem] = {"wav": str(p.relative_to(root)), **pair.sidecar(which)}
+    audio_io.write_pairs(pairs, subtype="FLOAT")  # the two appear together: A and B match
     return {"listening": listening}
 
 
