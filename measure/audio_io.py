@@ -128,6 +128,14 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
             os.close(saved_fd2)
     if data.shape[0] == 0:
         raise AudioFileError(f"{p} holds no samples; re-record or re-export it")
+    short = _wav_cut_short(p)
+    if short is not None:
+        promised, present = short
+        raise AudioFileError(
+            f"{p} is cut short: its header promises {promised:,} bytes of samples but the file "
+            f"holds {present:,} ({100 * present / promised:.0f} %), as a copy made while the "
+            "recorder was still writing or a failed copy leaves it; copy it again from the "
+            "recorder (or re-save it in an audio editor to use what is there)")
     x = np.ascontiguousarray(data.T)
     if not np.all(np.isfinite(x)):
         n_bad = int(np.count_nonzero(~np.isfinite(x)))
@@ -135,6 +143,34 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
             f"{p} holds {n_bad} NaN or Inf samples; re-export it from the recorder as PCM or "
             "clean float")
     return Audio(x=x, fs=int(fs), path=str(p), subtype=str(subtype))
+
+
+def _wav_cut_short(p: Path) -> tuple[int, int] | None:
+    """(bytes the ``data`` chunk's header promises, bytes present) of a RIFF/WAVE file that
+    ends before its data does; None for a whole file, another format, or a recorder's "size
+    unknown" header (0 or 0xFFFFFFFF, written while recording; RF64 keeps its sizes
+    elsewhere)."""
+    import struct
+
+    try:
+        size = p.stat().st_size
+        with open(p, "rb") as fh:
+            head = fh.read(12)
+            if len(head) < 12 or head[:4] != b"RIFF" or head[8:12] != b"WAVE":
+                return None
+            pos = 12
+            while pos + 8 <= size:
+                fh.seek(pos)
+                cid, n = struct.unpack("<4sI", fh.read(8))
+                if cid == b"data":
+                    present = size - pos - 8
+                    if n in (0, 0xFFFFFFFF) or n <= present:
+                        return None
+                    return n, present
+                pos += 8 + n + (n & 1)  # chunks are padded to an even size
+    except (OSError, struct.error):
+        return None
+    return None
 
 
 @contextlib.contextmanager

@@ -1,0 +1,51 @@
+"""Reading audio files that recorders and copies really leave (measure.audio_io.read_audio).
+
+Issue "Never lose a take, never crash on a bad file", accepted without a word: a truncated WAV
+(half its bytes) was read as a shorter recording. The RIFF/WAVE layout (a ``data`` chunk whose
+header gives its size in bytes, chunks padded to even sizes) is that of the Microsoft/IBM
+"Multimedia Programming Interface and Data Specifications 1.0" (1991); soundfile (libsndfile)
+writes the files here.
+"""
+
+from __future__ import annotations
+
+import struct
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from measure.audio_io import read_audio
+from measure.errors import AudioFileError
+
+
+@pytest.mark.parametrize("subtype", ["PCM_16", "PCM_24", "FLOAT"])
+def test_a_wav_cut_to_half_its_bytes_is_refused_with_what_is_there(tmp_path, subtype):
+    whole = tmp_path / "whole.wav"
+    sf.write(whole, 0.1 * np.random.default_rng(0).standard_normal(48000), 48000,
+             subtype=subtype)
+    cut = tmp_path / "cut.wav"
+    data = whole.read_bytes()
+    cut.write_bytes(data[: len(data) // 2])
+    assert read_audio(whole).x.shape == (1, 48000)
+    with pytest.raises(AudioFileError, match=r"cut short: .* \(50 %\)"):
+        read_audio(cut)
+
+
+def test_a_size_unknown_header_as_written_while_recording_is_read(tmp_path):
+    # Recorders write 0 or 0xFFFFFFFF as the data size until they stop (common practice);
+    # libsndfile then reads to the end of the file.
+    p = tmp_path / "streaming.wav"
+    sf.write(p, np.full(1000, 0.25), 8000, subtype="PCM_16")
+    b = bytearray(p.read_bytes())
+    i = b.index(b"data")
+    b[i + 4:i + 8] = struct.pack("<I", 0xFFFFFFFF)
+    p.write_bytes(bytes(b))
+    assert read_audio(p).x.shape[1] == 1000
+
+
+def test_an_odd_sized_8_bit_file_with_its_pad_byte_is_whole(tmp_path):
+    p = tmp_path / "odd.wav"
+    sf.write(p, np.full(1001, 0.25), 8000, subtype="PCM_U8")  # 1001 data bytes + 1 pad
+    a = read_audio(p)
+    assert a.x.shape == (1, 1001) and a.subtype == "PCM_U8"
