@@ -118,7 +118,8 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
             os.close(null_fd)
         with sf.SoundFile(str(p)) as f:  # opened once: format, rate and samples
             subtype, fs = f.subtype, f.samplerate
-            data = f.read(dtype="float64", always_2d=True)
+            too_big = _too_big(f.frames, f.channels, fs)
+            data = None if too_big else f.read(dtype="float64", always_2d=True)
     except (RuntimeError, sf.LibsndfileError, OSError, ValueError) as err:
         raise AudioFileError(
             f"cannot read {p} as audio ({err}); give a WAV or FLAC file") from err
@@ -126,6 +127,9 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
         if saved_fd2 is not None:
             os.dup2(saved_fd2, 2)
             os.close(saved_fd2)
+    if too_big:
+        raise AudioFileError(f"{p} is too long for this machine: {too_big}")
+    assert data is not None
     if data.shape[0] == 0:
         raise AudioFileError(f"{p} holds no samples; re-record or re-export it")
     short = _wav_cut_short(p)
@@ -143,6 +147,39 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
             f"{p} holds {n_bad} NaN or Inf samples; re-export it from the recorder as PCM or "
             "clean float")
     return Audio(x=x, fs=int(fs), path=str(p), subtype=str(subtype))
+
+
+#: The working memory of a recovery, in multiples of the recording as float64 (bench_ir measures
+#: about 6; 10 leaves room for the analysis that follows).
+WORKING_MEMORY_FACTOR = 10
+
+
+def available_memory_bytes() -> int | None:
+    """Memory the system can give this process now (Linux ``MemAvailable``; else the physical
+    memory; None if unknown)."""
+    with contextlib.suppress(OSError, ValueError):
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    with contextlib.suppress(AttributeError, ValueError, OSError):
+        return int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    return None
+
+
+def _too_big(frames: int, channels: int, fs: int) -> str | None:
+    """Why a file of this size cannot be worked on in this machine's memory, or None."""
+    avail = available_memory_bytes()
+    if avail is None or frames <= 0 or channels <= 0 or fs <= 0:
+        return None
+    need = frames * channels * 8 * WORKING_MEMORY_FACTOR
+    if need <= avail:
+        return None
+    max_s = avail / (channels * 8 * WORKING_MEMORY_FACTOR * fs)
+    bound = f"{max_s:,.0f}" if max_s >= 10 else f"{max_s:.2g}"
+    return (f"{frames / fs:,.0f} s of {channels} channel(s) at {fs} Hz needs about "
+            f"{need / 2**30:.1f} GiB to work on, and {avail / 2**30:.1f} GiB is free, enough "
+            f"for at most {bound} s; cut it into shorter files, or free memory")
 
 
 def _wav_cut_short(p: Path) -> tuple[int, int] | None:

@@ -49,3 +49,19 @@ def test_an_odd_sized_8_bit_file_with_its_pad_byte_is_whole(tmp_path):
     sf.write(p, np.full(1001, 0.25), 8000, subtype="PCM_U8")  # 1001 data bytes + 1 pad
     a = read_audio(p)
     assert a.x.shape == (1, 1001) and a.subtype == "PCM_U8"
+
+
+def test_a_file_too_long_for_the_machines_memory_is_refused_with_the_bound(tmp_path,
+                                                                          monkeypatch):
+    # Issue "Never lose a take", item 1: sizes are bounded by what the machine can hold, with
+    # the bound in the message (it used to end in a MemoryError). 1 s at 8 kHz, mono, needs
+    # 8000 × 8 B × 10 = 640 kB of working memory; with 320 kB free the bound is 0.5 s.
+    import measure.audio_io as aio
+
+    p = tmp_path / "long.wav"
+    sf.write(p, np.zeros(8000), 8000, subtype="PCM_16")
+    monkeypatch.setattr(aio, "available_memory_bytes", lambda: 320_000)
+    with pytest.raises(AudioFileError, match=r"too long for this machine: .* at most 0.5 s"):
+        read_audio(p)
+    monkeypatch.setattr(aio, "available_memory_bytes", lambda: 640_000)
+    assert read_audio(p).x.shape == (1, 8000)
