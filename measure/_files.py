@@ -210,7 +210,7 @@ class FileSet:
         # mkstemp-like files are owner-only; give it the permissions of any new file
         umask = os.umask(0)
         os.umask(umask)
-        with contextlib.suppress(OSError):
+        with contextlib.suppress(OSError, AttributeError):  # no fchmod on Windows
             os.fchmod(fd, 0o666 & ~umask)
         fh = os.fdopen(os.dup(fd), "w+b")
         self._staged.append((tmp, target, fd, fh))
@@ -251,14 +251,15 @@ class FileSet:
     def sha256(self, path: str | os.PathLike[str]) -> str:
         """Hex SHA-256 of what has been written so far for ``path``."""
         target = Path(path)
-        for _, t, fd, fh in self._staged:
+        for _, t, _, fh in self._staged:
             if t == target:
                 fh.flush()
+                end = fh.tell()
+                fh.seek(0)
                 h = hashlib.sha256()
-                offset = 0
-                while block := os.pread(fd, 1 << 20, offset):
+                while block := fh.read(1 << 20):
                     h.update(block)
-                    offset += len(block)
+                fh.seek(end)
                 return h.hexdigest()
         raise ValueError(f"{target} is not in this file set")
 
@@ -292,8 +293,14 @@ class FileSet:
                     finally:
                         os.close(fd)
                     _fsync_dir(folder)
-                    for tmp, target, _, _ in self._staged:
-                        os.replace(tmp, target)
+                    try:
+                        for tmp, target, _, _ in self._staged:
+                            os.replace(tmp, target)
+                    except BaseException:
+                        # Interrupted (SIGTERM, Ctrl-C) or failed half-way: finish what the
+                        # intent promised before the temporaries are discarded.
+                        _roll_forward(folder, intent.name)
+                        raise
                     _fsync_dir(folder)
                     os.unlink(intent)
             _fsync_dir(folder)

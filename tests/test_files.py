@@ -187,3 +187,22 @@ def test_a_writer_killed_at_random_points_leaves_a_whole_pair_after_the_next_run
         _files.clean_folder(tmp_path, force=True)  # what the next run in the folder does first
         assert _consistent_run(target) in (1, 2)
         assert _debris(tmp_path) == []
+
+
+def test_an_interrupt_between_the_renames_still_leaves_a_whole_pair(tmp_path, monkeypatch):
+    # SIGTERM and Ctrl-C arrive as exceptions; one raised after the WAV's rename must not leave
+    # the new WAV beside the old sidecar (the interrupted commit finishes the set first).
+    _write_run(str(tmp_path / "a.wav"), 1)
+    real_replace, calls = os.replace, []
+
+    def interrupted_after_first(src, dst):
+        real_replace(src, dst)
+        calls.append(dst)
+        if len(calls) == 1:
+            raise KeyboardInterrupt
+
+    monkeypatch.setattr(os, "replace", interrupted_after_first)
+    with pytest.raises(KeyboardInterrupt):
+        _write_run(str(tmp_path / "a.wav"), 2)
+    monkeypatch.setattr(os, "replace", real_replace)
+    assert _consistent_run(tmp_path / "a.wav") == 2 and _debris(tmp_path) == []
