@@ -260,12 +260,15 @@ def _coefficients(value: Any, what: str) -> tuple[float, ...]:
                              "or 8 values (63 Hz–8 kHz)")
     out = []
     for i, v in enumerate(value):
-        if isinstance(v, bool) or not isinstance(v, (int, float)):
-            raise ParameterError(f"{what}[{i}]={v!r} is not a number; give coefficients 0..1")
-        if not (0.0 <= float(v) <= 1.0):
-            raise ParameterError(f"{what}[{i}]={v!r} is outside 0..1; an absorption coefficient "
-                                 "lies between 0 (reflecting) and 1 (absorbing), so correct it")
-        out.append(float(v))
+        f = _as_float(v)
+        if f is None:
+            raise ParameterError(f"{what}[{i}]={_short(v)} is not a number; give coefficients "
+                                 "0..1")
+        if not (0.0 <= f <= 1.0):
+            raise ParameterError(f"{what}[{i}]={_short(v)} is outside 0..1; an absorption "
+                                 "coefficient lies between 0 (reflecting) and 1 (absorbing), so "
+                                 "correct it")
+        out.append(f)
     return _eight(out)
 
 
@@ -275,21 +278,41 @@ def _coefficients(value: Any, what: str) -> tuple[float, ...]:
 DIMENSION_RANGE_M = (0.1, 1000.0)
 
 
+def _as_float(v: Any) -> float | None:
+    """``v`` as a float (an integer beyond float range as inf); None for bools and non-numbers."""
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        return None
+    try:
+        return float(v)
+    except OverflowError:  # an integer of hundreds of digits
+        return math.inf
+
+
 def _real(v: Any, what: str, unit: str) -> float:
     """``v`` as a finite float; bools and text are not numbers (TOML "3" is a string)."""
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise ParameterError(f"{what}={v!r} is not a finite number; give it in {unit}")
-    return float(v)
+    f = _as_float(v)
+    if f is None or not math.isfinite(f):
+        raise ParameterError(f"{what}={_short(v)} is not a finite number; give it in {unit}")
+    return f
+
+
+def _short(v: Any) -> str:
+    """``repr(v)`` shortened for a one-line message."""
+    r = repr(v)
+    return r if len(r) <= 40 else r[:30] + "…" + r[-6:]
 
 
 def _triple(value: Any, what: str) -> tuple[float, float, float]:
     if isinstance(value, (str, bytes)) or not isinstance(value, Sequence) or len(value) != 3:
-        raise ParameterError(f"{what}={value!r} is not three numbers; give [x, y, z] in metres")
+        raise ParameterError(f"{what}={_short(value)} is not three numbers; give [x, y, z] in "
+                             "metres")
     out = []
     for v in value:
-        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-            raise ParameterError(f"{what}={value!r} holds a non-number; give [x, y, z] in metres")
-        out.append(float(v))
+        f = _as_float(v)
+        if f is None or not math.isfinite(f):
+            raise ParameterError(f"{what}={_short(value)} holds a non-number; give [x, y, z] in "
+                                 "metres")
+        out.append(f)
     return out[0], out[1], out[2]
 
 

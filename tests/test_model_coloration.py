@@ -309,3 +309,23 @@ def test_fit_of_a_two_second_ir_is_fast():
     t0 = time.perf_counter()
     fit_coloration(h, FS)
     assert time.perf_counter() - t0 < 1.0
+
+
+def test_remap_keeps_a_root_at_the_origin_without_warning():
+    # issue 12, fuzzing: a zero at z = 0 (a pure delay factor, |e^{jω} − 0| = 1) went through
+    # log(0) in the matched-z map and warned of a division by zero and an invalid value. It
+    # maps to the origin at every rate (s = fs·ln z = −∞ is kept), so the remapped filter keeps
+    # the original's flat magnitude: 0 dB within 0.01 dB (the remap's own error, module notes).
+    import warnings
+
+    from measure.model.coloration import Coloration, coloration_response, remap_coloration
+
+    sos = np.array([[1.0, 0.0, 0.0, 1.0, 0.0, 0.0]])
+    col = Coloration(sos=sos, fs=48000, order=2, zeros=np.zeros(2, complex),
+                     poles=np.zeros(2, complex), gain=1.0, lsd_db=0.0, method="lm",
+                     f_lo_hz=20.0, f_hi_hz=20000.0, smoothing_fraction=3)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        new = remap_coloration(col, 44100)
+    mag_db = 20 * np.log10(np.abs(coloration_response(new, np.geomspace(63, 16000, 50))))
+    assert np.max(np.abs(mag_db)) < 0.01

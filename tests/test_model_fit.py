@@ -148,3 +148,37 @@ def test_late_part_from_the_mixing_time():
     assert d.late.start_s == pytest.approx(0.0025) and d.late.diffuse_from_s is None
     t30 = res.report.cell("1k", "t30_s")
     assert abs(t30.difference_jnd) <= 1.0  # T30 is calibrated either way (1 JND = 5 %)
+
+
+def test_impulse_then_digital_silence_fits_a_model_without_late_energy():
+    # issue 12, fuzzing: a unit impulse followed by digital silence (0.1 s at 8 kHz) used to
+    # end in an IndexError in the envelope segments (every band's decay is truncated within the
+    # 2.5 ms direct-sound window, so no segment edge was kept). Such a band keeps one segment
+    # from the late start, and since the response holds no late energy at all, the fit's
+    # envelope gain there sits at its floor (ENVELOPE_LIMITS_DB[0] = -40 dB).
+    from measure.model.fit import ENVELOPE_LIMITS_DB, LATE_START_S
+
+    h = np.zeros(800)
+    h[509] = 1.0
+    res = fit_model(h, 8000)
+    for edges, gains in zip(res.model.late.envelope_edges_s, res.model.late.envelope_db,
+                            strict=True):
+        assert edges[0] == LATE_START_S and len(gains) == len(edges) - 1
+        assert all(np.isfinite(gains))
+    assert min(min(g) for g in res.model.late.envelope_db) == ENVELOPE_LIMITS_DB[0]
+
+
+def test_a_response_ending_right_after_its_direct_sound_is_refused():
+    # issue 12, fuzzing: a decay (0.5 s at 48 kHz) whose strongest arrival, taken as the direct
+    # sound, lies 200 samples = 4.2 ms before the end leaves nothing of the decay to fit: the
+    # envelope's one segment would be narrower than its 2 ms edge ramp and the model refused
+    # with "re-fit the model". The fit now says what is wrong: 4.2 ms < 2.5 ms direct-sound
+    # window + 4 ms shortest segment (fit.LATE_START_S + fit.ENVELOPE_MIN_WIDTH_S = 6.5 ms).
+    from measure.errors import FitError
+
+    rng = np.random.default_rng(1)
+    t = np.arange(FS // 2) / FS
+    h = 0.1 * rng.standard_normal(t.size) * np.exp(-6.9 * t / 0.5)
+    h[-200] = 5.0
+    with pytest.raises(FitError, match=r"ends 4.2 ms after its direct sound.*at least 6.5 ms"):
+        fit_model(h, FS)

@@ -756,7 +756,11 @@ def _matched_z(roots: NDArray[np.complex128], ratio: float) -> NDArray[np.comple
     roots = np.asarray(roots, dtype=np.complex128)
     real = np.abs(roots.imag) <= 1e-9
     neg_real = real & (roots.real < 0)
-    out = np.exp(ratio * np.log(roots[~neg_real] + 0j))
+    kept = roots[~neg_real]
+    # a root at the origin stays there (s = −∞ at every rate); log(0) would warn and give NaN
+    out = np.zeros(kept.size, dtype=np.complex128)
+    nz = kept != 0
+    out[nz] = np.exp(ratio * np.log(kept[nz]))
     out[real[~neg_real]] = out[real[~neg_real]].real
     mag = np.abs(roots[neg_real]) ** ratio
     if ratio < 1.0:

@@ -415,6 +415,11 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     t_target = _fill_missing(decays, "decay time")
     shift = int(round(t0 * fs))
     n = h.size
+    if (n - shift) / fs < LATE_START_S + ENVELOPE_MIN_WIDTH_S:
+        raise FitError(
+            f"the response ends {1000.0 * (n - shift) / fs:.1f} ms after its direct sound (at "
+            f"{t0:.3f} s); the late part needs at least "
+            f"{1000.0 * (LATE_START_S + ENVELOPE_MIN_WIDTH_S):.1f} ms of it: give the whole decay")
     late_start, fade, diffuse_from = LATE_START_S, LATE_FADE_S, None
     if late_from == "mixing" and mixing_s is not None and mixing_s - MIXING_FADE_S > LATE_START_S:
         # the network is complete at the mixing time; before it an early diffuse part (band-
@@ -680,7 +685,9 @@ def _band_segments(measured, t0: float, horizon_s: float, late_start: float) -> 
         # are closer than the band's time resolution); a decay mark joins only where it is at
         # least `width` from every edge already kept
         fixed = sorted(m for m in {late_start, *ENVELOPE_SPLITS_S} if late_start <= m < limit)
-        edges = list(fixed)
+        # a band whose decay is truncated within the direct-sound window (an impulse followed
+        # by digital silence) keeps one segment from the late start: its wanted energy is ~0
+        edges = list(fixed) or [late_start]
         for m in sorted(set(marks) - set(fixed)):
             if late_start < m < limit and min(abs(m - e) for e in edges) >= width:
                 edges.append(m)
