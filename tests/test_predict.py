@@ -337,3 +337,17 @@ def test_load_room_reads_toml_and_names_the_file_in_errors(tmp_path):
 def test_absurd_room_descriptions_are_refused_with_the_range(doc, match):
     with pytest.raises(ParameterError, match=match):
         room_from_dict(doc)
+
+
+@pytest.mark.parametrize("doc, match", [
+    (_with(dimensions_m=[10 ** 400, 4.0, 3.0]), r"dimensions_m=.* holds a non-number"),
+    (_with(**{"surfaces.ceiling": [10 ** 400, 0.2, 0.3, 0.4, 0.5, 0.6]}),
+     r"surface 'ceiling'\[0\]=.*outside 0..1"),
+    (_with(extra=[{"name": "x", "area_m2": [10 ** 400, 1, 1, 1, 1, 1]}]),
+     r"area_m2=1000.* is not a finite number"),
+])
+def test_integers_beyond_float_range_are_refused_not_overflowed(doc, match):
+    # issue 12, fuzzing: TOML and JSON integers have no size limit; one of 401 digits used to
+    # escape as OverflowError ("int too large to convert to float") from the range checks.
+    with pytest.raises(ParameterError, match=match):
+        room_from_dict(doc)
