@@ -81,6 +81,11 @@ HEADROOM_PEAK_DBFS = -3.0
 #: Below this peak-to-noise (dB) the signal is not found at all in the recording (common practice:
 #: a matched filter's peak 20 dB above its noise is an unambiguous detection).
 FOUND_PNR_DB = 20.0
+#: A mean above this (|mean| re full scale) is a large DC offset: a healthy AC-coupled input
+#: sits far below it, and at 1 % of full scale the offset is a fault worth fixing (common
+#: practice). The response is still recovered (the inverse filter is band-limited above f1),
+#: so it is a warning, not a redo.
+DC_WARN_DBFS = -40.0
 
 
 def _sd() -> Any:
@@ -467,16 +472,45 @@ class ChannelStats:
         Samples with |y| >= CLIP_LEVEL.
     n_noise_samples : int
         Samples the noise figure was measured on (0: no noise-only part, e.g. no lead-in).
+    dc_dbfs : float or None
+        DC offset, 20 lg |mean(y)| re 1.0 over the whole channel; None if the mean is exactly 0.
     """
 
     peak_dbfs: float | None
     noise_rms_dbfs: float | None
     n_clipped: int
     n_noise_samples: int = 0
+    dc_dbfs: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return {"peak_dbfs": self.peak_dbfs, "noise_rms_dbfs": self.noise_rms_dbfs,
-                "n_clipped": self.n_clipped, "n_noise_samples": self.n_noise_samples}
+                "n_clipped": self.n_clipped, "n_noise_samples": self.n_noise_samples,
+                "dc_dbfs": self.dc_dbfs}
+
+
+def dc_offsets_dbfs(y: np.ndarray) -> tuple[float | None, ...]:
+    """DC offset of each channel of ``y`` (channels, samples): 20 lg |mean| re full scale, or
+    None where the mean is exactly 0."""
+    y = np.atleast_2d(np.asarray(y, dtype=np.float64))
+    return tuple(_db(float(np.mean(ch)) ** 2) if ch.size else None for ch in y)
+
+
+def dc_offset_warning(dc_dbfs: float | None, label: str) -> str | None:
+    """The warning for a DC offset above :data:`DC_WARN_DBFS`, or None.
+
+    Notes
+    -----
+    An offset d (linear, re full scale) leaves the signal 1 - |d| before it clips on the
+    offset's side, so it costs -20 lg(1 - |d|) dB of headroom (derived).
+    """
+    if dc_dbfs is None or not dc_dbfs > DC_WARN_DBFS:
+        return None
+    d = 10.0 ** (dc_dbfs / 20.0)
+    cost = "all of the headroom" if d >= 1.0 else (
+        f"{-20.0 * math.log10(1.0 - d):.2f} dB of headroom")
+    return (f"{label}: DC offset {dc_dbfs:.1f} dBFS (above {DC_WARN_DBFS:g} dBFS) costs {cost} "
+            "on that side; the response is recovered regardless, but check the input (a faulty "
+            "preamplifier, a DC-coupled input or a failing microphone) before the next take")
 
 
 def input_stats(y: np.ndarray, noise: slice) -> tuple[ChannelStats, ...]:
@@ -486,13 +520,14 @@ def input_stats(y: np.ndarray, noise: slice) -> tuple[ChannelStats, ...]:
     """
     y = np.atleast_2d(np.asarray(y, dtype=np.float64))
     out = []
-    for ch in y:
+    for ch, dc in zip(y, dc_offsets_dbfs(y), strict=True):
         a = np.abs(ch)
         seg = ch[noise]
         out.append(ChannelStats(
             peak_dbfs=_db(float(a.max()) ** 2) if a.size else None,
             noise_rms_dbfs=_db(float(np.mean(seg ** 2))) if seg.size else None,
-            n_clipped=int(np.count_nonzero(a >= CLIP_LEVEL)), n_noise_samples=int(seg.size)))
+            n_clipped=int(np.count_nonzero(a >= CLIP_LEVEL)), n_noise_samples=int(seg.size),
+            dc_dbfs=dc))
     return tuple(out)
 
 
@@ -776,15 +811,17 @@ def figure_reasons(doc: dict[str, Any], label: str, *, cut: bool = False,
 
 @dataclass(frozen=True, slots=True, eq=False)
 class Verdict:
-    """Good or redo, with every reason (``reasons`` empty for a good take) and notes."""
+    """Good or redo, with every reason (``reasons`` empty for a good take), notes, and warnings
+    (a fault to fix before the next take that did not spoil this one, e.g. a DC offset)."""
 
     good: bool
     reasons: tuple[str, ...]
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         return {"verdict": "good" if self.good else "redo", "reasons": list(self.reasons),
-                "notes": list(self.notes)}
+                "notes": list(self.notes), "warnings": list(self.warnings)}
 
 
 def judge_take(stats: Sequence[ChannelStats], *, n_xruns: int, channel_labels: Sequence[str],
@@ -796,9 +833,12 @@ def judge_take(stats: Sequence[ChannelStats], *, n_xruns: int, channel_labels: S
     Redo when: any sample clipped; the stream reported any overflow or underflow; no sweep was
     found on a channel; the peak-to-noise of a measurement channel is below the 35 dB T20 needs
     (ISO 3382-1 5.3.3). Notes (not redo): below 45 dB (no T30), a low peak, two devices.
+    Warnings (not redo): a DC offset above :data:`DC_WARN_DBFS`.
     """
     reasons: list[str] = list(extra)
     notes: list[str] = []
+    warnings = [w for st, label in zip(stats, channel_labels, strict=True)
+                if (w := dc_offset_warning(st.dc_dbfs, label)) is not None]
     for st, label in zip(stats, channel_labels, strict=True):
         if st.n_clipped:
             reasons.append(
@@ -836,4 +876,5 @@ def judge_take(stats: Sequence[ChannelStats], *, n_xruns: int, channel_labels: S
             txt += ("; for exact timing use one interface with a loopback cable "
                     "(--loopback-channel)")
         notes.append(txt)
-    return Verdict(good=not reasons, reasons=tuple(reasons), notes=tuple(notes))
+    return Verdict(good=not reasons, reasons=tuple(reasons), notes=tuple(notes),
+                   warnings=tuple(warnings))

@@ -3,18 +3,70 @@
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 from typing import Any
 
 
-def positive_float(text: str) -> float:
+def finite_float(text: str) -> float:
+    """argparse type: a finite number (``float`` alone accepts "nan" and "inf", which no option
+    of this tool can use; a NaN temperature was stored in a take's sidecar as null)."""
     try:
         v = float(text)
     except ValueError as err:
         raise argparse.ArgumentTypeError(f"{text!r} is not a number") from err
+    if not math.isfinite(v):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a finite number; give a number")
+    return v
+
+
+def positive_float(text: str) -> float:
+    """argparse type: a finite number > 0."""
+    v = finite_float(text)
     if not (v > 0):
         raise argparse.ArgumentTypeError(f"{text!r} must be positive")
     return v
+
+
+#: ISO 9613-1:1993 computes the absorption of sound by the air for -20..+50 °C and
+#: 10..100 % relative humidity (clause 1 and the ranges of Table 1; from memory). A value
+#: outside it is kept, with a warning that the air absorption computed from it is an
+#: extrapolation.
+ISO9613_TEMPERATURE_C = (-20.0, 50.0)
+ISO9613_HUMIDITY_PERCENT = (10.0, 100.0)
+#: Air temperatures a room measurement can meet, as a room description accepts them
+#: (measure.predict.RoomDescription); outside them the value is a typo, refused.
+TEMPERATURE_LIMITS_C = (-50.0, 60.0)
+
+
+def check_air(temperature_c: float | None, humidity_percent: float | None) -> list[str]:
+    """Refuse an impossible air temperature or relative humidity (ParameterError); return
+    warnings for values outside the range ISO 9613-1 covers. None means not given."""
+    from measure.errors import ParameterError
+
+    warnings: list[str] = []
+    if humidity_percent is not None:
+        if not 0.0 <= humidity_percent <= 100.0:
+            raise ParameterError(
+                f"--humidity {humidity_percent:g} is not a relative humidity: it lies in "
+                "0..100 %; give the reading of the hygrometer in %")
+        lo, hi = ISO9613_HUMIDITY_PERCENT
+        if not lo <= humidity_percent <= hi:
+            warnings.append(
+                f"--humidity {humidity_percent:g} % is outside the {lo:g}..{hi:g} % that "
+                "ISO 9613-1 covers: air absorption computed from it is an extrapolation")
+    if temperature_c is not None:
+        lo, hi = TEMPERATURE_LIMITS_C
+        if not lo <= temperature_c <= hi:
+            raise ParameterError(
+                f"--temperature {temperature_c:g} °C is outside {lo:g}..{hi:g} °C; give the "
+                "air temperature in degrees Celsius")
+        lo, hi = ISO9613_TEMPERATURE_C
+        if not lo <= temperature_c <= hi:
+            warnings.append(
+                f"--temperature {temperature_c:g} °C is outside the {lo:g}..{hi:g} °C that "
+                "ISO 9613-1 covers: air absorption computed from it is an extrapolation")
+    return warnings
 
 
 def print_json(obj: Any) -> None:

@@ -91,6 +91,11 @@ def run(args: argparse.Namespace) -> int:
         capture = recover_ir(audio.x, sweep, channels=[ch])
         for w in capture.warnings:
             warn(w)
+        from measure.capture import dc_offset_warning, dc_offsets_dbfs
+
+        if (w := dc_offset_warning(dc_offsets_dbfs(audio.x[ch])[0],
+                                   f"channel {ch + 1}")) is not None:
+            warn(w)
         h = capture.h[0]
         context = capture.context(0)
     else:

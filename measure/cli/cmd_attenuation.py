@@ -6,6 +6,8 @@ import argparse
 from pathlib import Path
 from typing import Any
 
+from measure.cli._common import finite_float, positive_float
+
 NAME = "attenuation"
 HELP = "distance and direction curves: gain, low-pass, high-pass, wet/dry, directivity"
 DESCRIPTION = """\
@@ -39,9 +41,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="source-microphone distance of each IR file, metres")
     p.add_argument("--angles", metavar="A1,A2,...", default=None,
                    help="angle off the source's axis of each IR file, degrees")
-    p.add_argument("--reference", type=float, default=None, metavar="D",
+    p.add_argument("--reference", type=positive_float, default=None, metavar="D",
                    help="reference distance (one of the series, m; default the nearest)")
-    p.add_argument("--reference-angle", type=float, default=None, metavar="A",
+    p.add_argument("--reference-angle", type=finite_float, default=None, metavar="A",
                    help="reference angle (one of the series, degrees; default the one nearest 0)")
     p.add_argument("--sweep", metavar="SWEEP.wav", default=None,
                    help="for a room folder: the sweep that was played, instead of the one each "
@@ -55,12 +57,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--band", metavar="LO,HI", default=None,
                    help="frequency band of the fits, Hz (default: what the window resolves, to "
                         "20 kHz)")
-    p.add_argument("--temperature", type=float, default=20.0, metavar="C",
+    p.add_argument("--temperature", type=finite_float, default=20.0, metavar="C",
                    help="air temperature for the ISO 9613-1 expectation, °C (default 20; a "
                         "room folder's sidecars take precedence)")
-    p.add_argument("--humidity", type=float, default=50.0, metavar="PERCENT",
-                   help="relative humidity, %% (default 50)")
-    p.add_argument("--pressure", type=float, default=101.325, metavar="KPA",
+    p.add_argument("--humidity", type=finite_float, default=50.0, metavar="PERCENT",
+                   help="relative humidity, %% (default 50; 0..100)")
+    p.add_argument("--pressure", type=positive_float, default=101.325, metavar="KPA",
                    help="air pressure, kPa (default 101.325)")
     p.add_argument("--rate", type=int, default=None, metavar="HZ",
                    help="sample rate of the digital filter coefficients (default the IRs')")
@@ -152,9 +154,11 @@ def _num(v: Any) -> float | None:
 def run(args: argparse.Namespace) -> int:
     from measure import audio_io
     from measure.attenuation import analyze_series
-    from measure.cli._common import info, print_json, refuse_overwriting_inputs
+    from measure.cli._common import check_air, info, print_json, refuse_overwriting_inputs, warn
     from measure.errors import ParameterError
 
+    for w in check_air(args.temperature, args.humidity):
+        warn(w)
     distances = _numbers(args.distances, "--distances")
     angles = _numbers(args.angles, "--angles")
     window_s = _window(args.window)

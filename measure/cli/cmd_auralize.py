@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from measure.cli._common import finite_float
+
 NAME = "auralize"
 HELP = "convolve a dry sound with a measured impulse response or a rendered room model"
 DESCRIPTION = """\
@@ -19,7 +21,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="a model file written by `measure fit`, or a measured impulse response")
     p.add_argument("dry", metavar="DRY.wav", help="the dry sound")
     p.add_argument("--out", required=True, metavar="WET.wav", help="result to write")
-    p.add_argument("--peak", type=float, default=None, metavar="DBFS",
+    p.add_argument("--peak", type=finite_float, default=None, metavar="DBFS",
                    help="scale the result to this peak level in dBFS (default: unscaled)")
     p.add_argument("--channel", type=int, default=1, metavar="N",
                    help="channel of IR.wav to use, 1-based (default 1)")
@@ -42,6 +44,9 @@ def run(args: argparse.Namespace) -> int:
         raise ParameterError(f"--peak {args.peak} dBFS must be at most 0")
     refuse_overwriting_inputs(args.out, args.room, args.dry)
     dry = audio_io.read_audio(args.dry)
+    if not np.any(dry.x):  # the result would be silent
+        raise ParameterError(f"{args.dry} is silent (every sample is zero): the result would be "
+                             "silent too; give a dry sound with some signal")
     room = Path(args.room)
     if room.suffix.lower() == ".json":
         from measure.model.modelfile import model_from_dict
@@ -57,11 +62,16 @@ def run(args: argparse.Namespace) -> int:
                 "(or fit a model, which renders at any rate)")
         ir = a.x[channel_index(args.channel, a.n_channels, option="--channel", source=str(room))]
         what = f"measured response {room.name}"
+    if not np.any(ir):
+        raise ParameterError(
+            f"the {what} is all zeros (channel {args.channel}): the result would be silent; "
+            "give a measured response (or a model) that holds the room")
     wet = auralize(dry.x, dry.fs, ir)
     peak = float(np.max(np.abs(wet)))
+    if not (peak > 0):  # both inputs hold signal, yet nothing came out (e.g. underflow)
+        raise ParameterError(f"{args.dry} in the {what} is silent; give a louder dry sound or "
+                             "response")
     if args.peak is not None:
-        if peak == 0:
-            raise ParameterError(f"{args.dry} is silent; give a dry sound with some signal")
         wet = wet * (10.0 ** (args.peak / 20.0) / peak)
     elif peak > 1.0:
         info(f"note: the result peaks at {20 * np.log10(peak):+.1f} dBFS (the float WAV keeps it); "

@@ -9,6 +9,8 @@ import sys
 import time
 from typing import Any
 
+from measure.cli._common import finite_float, positive_float
+
 NAME = "capture"
 HELP = "play a sweep and record the room: one take, saved before anything else, then judged"
 DESCRIPTION = """\
@@ -75,11 +77,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     add_device_arguments(p)
     p.add_argument("--captures", metavar="DIR", default="captures",
                    help="captures folder (default ./captures)")
-    p.add_argument("--distance", type=float, metavar="M", help="source-microphone distance in m")
-    p.add_argument("--angle", type=float, metavar="DEG",
+    p.add_argument("--distance", type=positive_float, metavar="M",
+                   help="source-microphone distance in m (> 0)")
+    p.add_argument("--angle", type=finite_float, metavar="DEG",
                    help="angle of the microphone off the source's axis, in degrees")
-    p.add_argument("--temperature", type=float, metavar="C", help="air temperature in deg C")
-    p.add_argument("--humidity", type=float, metavar="PERCENT", help="relative humidity in %%")
+    p.add_argument("--temperature", type=finite_float, metavar="C",
+                   help="air temperature in deg C")
+    p.add_argument("--humidity", type=finite_float, metavar="PERCENT",
+                   help="relative humidity in %% (0..100)")
     p.add_argument("--notes", metavar="TEXT", help="free text kept in the sidecar")
     p.add_argument("--label", action="append", default=[], metavar="TEXT",
                    help="extra label kept in the sidecar (repeatable)")
@@ -319,10 +324,12 @@ def _run(args: argparse.Namespace, stage: dict[str, Any]) -> int:
     from measure import session
     from measure.audio_io import file_sha256, read_sweep
     from measure.capture import input_stats, play_and_record
-    from measure.cli._common import info, print_json
+    from measure.cli._common import check_air, info, print_json, warn
 
     room = session.check_label(args.room, "room")
     position = session.check_label(args.position, "position")
+    for w in check_air(args.temperature, args.humidity):
+        warn(w)
     sweep = read_sweep(args.sweep)
     setup = setup_devices(args)
     labels = channel_labels(setup["input_channels"], setup["loopback"])
@@ -386,6 +393,8 @@ def _run(args: argparse.Namespace, stage: dict[str, Any]) -> int:
                            n_xruns=rec.n_xruns,
                            same_device=rec.input_device.index == rec.output_device.index)
     session.update_sidecar(take, analysis=summary["analysis"], verdict=summary["verdict"])
+    for w in summary["verdict"]["warnings"]:
+        warn(w)
     summary["take"] = take.to_dict()
     summary["recording"] = rec.to_dict()
     if args.json:
@@ -465,7 +474,7 @@ def analyse_take(y: Any, fs: int, sweep: Any, *, stats: Any, labels: list[str],
                          drift_ppm=None if ir is None else ir.drift_ppm, extra=extra)
     notes = list(verdict.notes) + extra_notes + (
         [] if ir is None else [f"IR: {w}" for w in ir.warnings])
-    v = verdict.to_dict()
+    v = verdict.to_dict()  # its warnings (a DC offset) are printed by the command
     v["notes"] = notes
     return {"analysis": analysis, "verdict": v,
             "input": [dict(s.to_dict(), label=lab) for s, lab in zip(stats, labels, strict=True)]}

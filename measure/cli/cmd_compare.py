@@ -8,6 +8,8 @@ import math
 from pathlib import Path
 from typing import Any
 
+from measure.cli._common import finite_float
+
 NAME = "compare"
 HELP = "compare two rooms (measured, modelled, a reverb preset, predicted) in JNDs"
 DESCRIPTION = """\
@@ -38,7 +40,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rate", type=int, default=None, metavar="HZ",
                    help="sample rate at which models, presets and descriptions are rendered "
                         "(default: the measured side's, else 48000)")
-    p.add_argument("--fail-above", type=float, default=None, metavar="JNDS",
+    p.add_argument("--fail-above", type=finite_float, default=None, metavar="JNDS",
                    help="exit 1 when any compared figure differs by more than this many JNDs")
     p.add_argument("--json", action="store_true", help="print the comparison as one JSON object")
 

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from measure.cli._common import finite_float, positive_float
+
 NAME = "import"
 HELP = "file a recording made by another device (handheld recorder, phone) as a take"
 DESCRIPTION = """\
@@ -35,10 +37,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="what recorded it, e.g. 'handheld recorder, internal mics'")
     p.add_argument("--player", metavar="TEXT",
                    help="what played the sweep, e.g. 'phone into a powered monitor'")
-    p.add_argument("--distance", type=float, metavar="M", help="source-microphone distance in m")
-    p.add_argument("--angle", type=float, metavar="DEG", help="angle off the source's axis, deg")
-    p.add_argument("--temperature", type=float, metavar="C", help="air temperature in deg C")
-    p.add_argument("--humidity", type=float, metavar="PERCENT", help="relative humidity in %%")
+    p.add_argument("--distance", type=positive_float, metavar="M",
+                   help="source-microphone distance in m (> 0)")
+    p.add_argument("--angle", type=finite_float, metavar="DEG",
+                   help="angle off the source's axis, deg")
+    p.add_argument("--temperature", type=finite_float, metavar="C",
+                   help="air temperature in deg C")
+    p.add_argument("--humidity", type=finite_float, metavar="PERCENT",
+                   help="relative humidity in %% (0..100)")
     p.add_argument("--notes", metavar="TEXT", help="free text kept in the sidecar")
     p.add_argument("--label", action="append", default=[], metavar="TEXT",
                    help="extra label kept in the sidecar (repeatable)")
@@ -51,13 +57,14 @@ def run(args: argparse.Namespace) -> int:
 
     from measure import session
     from measure.audio_io import file_sha256, read_audio, read_json, read_sweep, sidecar_path
-    from measure.capture import input_stats
+    from measure.capture import dc_offset_warning, input_stats
     from measure.cli import cmd_capture as cc
-    from measure.cli._common import channel_index, info, print_json
+    from measure.cli._common import channel_index, check_air, info, print_json, warn
     from measure.errors import AudioFileError, ParameterError
 
     room = session.check_label(args.room, "room")
     position = session.check_label(args.position, "position")
+    air_warnings = check_air(args.temperature, args.humidity)
     src = Path(args.file)
     audio = read_audio(src)
     sweep = None
@@ -80,6 +87,12 @@ def run(args: argparse.Namespace) -> int:
                              source=str(src))
         if loop not in rows:
             rows.append(loop)
+        if rows == [loop]:
+            raise ParameterError(
+                f"the only channel to analyse is the --loopback-channel {loop + 1}: a channel "
+                "referenced to itself gives a unit impulse at latency 0, not the room; give the "
+                "microphone's channel too, e.g. --channels "
+                f"{1 if loop else 2},{loop + 1}")
     old_side = None
     sp = sidecar_path(src)
     if sp.exists() and sp.resolve() != src.resolve():
@@ -116,7 +129,12 @@ def run(args: argparse.Namespace) -> int:
         take = session.save_take(args.captures, room, position, audio.x, audio.fs, sidecar,
                                  subtype=subtype)
     info(f"filed {src} as {take.wav} and {take.json.name}")
+    for w in air_warnings:
+        warn(w)
     if sweep is None:
+        for i, s in enumerate(stats):
+            if (w := dc_offset_warning(s.dc_dbfs, f"channel {i + 1}")) is not None:
+                warn(w)
         if args.json:
             print_json({"take": take.to_dict()})
         return 0
@@ -131,6 +149,8 @@ def run(args: argparse.Namespace) -> int:
             "recorded by another device: the latency includes the player's and recorder's "
             "start times and is not a physical delay; the clock drift was corrected")
     session.update_sidecar(take, analysis=summary["analysis"], verdict=summary["verdict"])
+    for w in summary["verdict"]["warnings"]:
+        warn(w)
     summary["take"] = take.to_dict()
     if args.json:
         print_json(summary)

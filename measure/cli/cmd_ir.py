@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from measure.cli._common import finite_float
+
 NAME = "ir"
 HELP = "recover impulse responses from a recording of a sweep"
 DESCRIPTION = """\
@@ -29,7 +31,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--save-harmonics", action="store_true",
                    help="also write IR.harmonics.wav: the harmonic-distortion responses of the "
                         "first channel, one channel per order (2, 3, ...)")
-    p.add_argument("--pre", type=float, default=None, metavar="S",
+    p.add_argument("--pre", type=finite_float, default=None, metavar="S",
                    help="seconds kept before the direct sound (default: two periods of the "
                         "sweep's start frequency, at least 0.005)")
     p.add_argument("--json", action="store_true", help="print the IR figures as JSON on stdout")
@@ -56,10 +58,21 @@ def run(args: argparse.Namespace) -> int:
     ref = (None if args.loopback_channel is None
            else channel_index(args.loopback_channel, cap.n_channels,
                               option="--loopback-channel", source="the capture"))
+    if ref is not None and channels is not None and ref in channels:
+        raise ParameterError(
+            f"--channel {ref + 1} is the --loopback-channel: a channel referenced to itself "
+            "gives a unit impulse at latency 0, not the room; give the microphone's channel "
+            "with --channel (or leave it out for all but the loopback)")
     ir = recover_ir(cap.x, sweep, channels=channels, reference_channel=ref,
                     n_harmonics=args.harmonics, pre_s=args.pre)
     for w in ir.warnings:
         warn(w)
+    from measure.capture import dc_offset_warning, dc_offsets_dbfs
+
+    dc = dc_offsets_dbfs(cap.x)
+    for c in ir.channels:
+        if (w := dc_offset_warning(dc[c], f"channel {c + 1}")) is not None:
+            warn(w)
     sources = {"capture": str(args.capture), "capture_sha256": audio_io.file_sha256(args.capture),
                "sweep": str(args.sweep), "sweep_sha256": audio_io.file_sha256(args.sweep)}
     from pathlib import Path
