@@ -449,7 +449,8 @@ def locate_sweeps(d: np.ndarray, sweep: Sweep, n_recorded: int) -> np.ndarray:
     if not peak > noise * 10.0 ** (DETECTION_DB / 20.0):
         raise AudioFileError(
             f"no sweep found in the recording (its strongest response is only "
-            f"{20 * math.log10(max(peak, 1e-300) / noise):.1f} dB above the noise, "
+            f"{round(20 * math.log10(max(peak, 1e-300) / noise), 1) + 0.0:.1f} dB above the "
+            "noise, "
             f"{DETECTION_DB:g} dB needed); {advice}")
     # A recording of another sweep deconvolves to a chirp, whose peak can stand far above the
     # noise of a quiet room; its octaves arrive at different times (:func:`_octaves_meeting_peak`)
@@ -1417,6 +1418,11 @@ def recover_ir(y: np.ndarray, sweep: Sweep, *, channels: Sequence[int] | None = 
             raise ParameterError(
                 f"channel {c + 1} does not exist: the recording has {n_ch} channel(s); "
                 f"choose one of 1..{n_ch}")
+    if not np.any(y2):
+        raise AudioFileError(
+            "no sweep found in the recording: it is digital silence (every sample is zero), "
+            "so nothing reached the input; check that the microphone is connected, the right "
+            "input is chosen and its gain is up, then record again")
     if channels is None:
         channels = [c for c in range(n_ch) if c != reference_channel] or [0]
     channels = list(channels)

@@ -473,3 +473,17 @@ def test_distortion_below_the_noise_is_said_so():
     for hd in ir.harmonics[0]:
         assert not hd.above_noise and hd.percent is None and hd.noise_percent > 0
         assert "below the noise" in hd.describe()
+
+
+def test_digital_silence_is_named_as_such():
+    # issue 12, fuzzing: a recording of exact zeros was reported as "its strongest response is
+    # only 0.0 dB above the noise" (0/0 under a 1e-300 guard), and a near-silent one as
+    # "-0.0 dB". Digital silence now gets its own message; the ratio never prints as -0.0.
+    sweep = make_sweep(SweepSpec(fs=8000, f1_hz=50.0, f2_hz=4000.0, duration_s=0.2, gap_s=0.2,
+                                 lead_in_s=0.05, fade_in_s=0.01))
+    with pytest.raises(AudioFileError, match=r"^no sweep found in the recording: it is digital silence"):
+        recover_ir(np.zeros(sweep.program.size), sweep)
+    y = np.random.default_rng(3).standard_normal(sweep.program.size) * 1e-3
+    with pytest.raises(AudioFileError, match=r"no sweep found") as err:
+        recover_ir(y, sweep)
+    assert "-0.0 dB" not in str(err.value)
