@@ -215,7 +215,10 @@ def coloration_from_dict(d: dict[str, Any]) -> Coloration:
                 and np.all(np.isfinite(poles))):
             raise ParameterError("coloration: sos, zeros and poles must be finite numbers; "
                                  "re-fit the model")
-        if np.any(np.abs(poles) >= 1.0) or np.any(np.abs(signal.sos2zpk(sos)[1]) >= 1.0):
+        # the poles of the sections from their denominators alone (sos2zpk would also
+        # normalise the numerators, which warns of bad coefficients for a very quiet filter)
+        sos_poles = np.concatenate([np.roots(row[3:]) for row in sos]) if sos.size else poles
+        if np.any(np.abs(poles) >= 1.0) or np.any(np.abs(sos_poles) >= 1.0):
             raise ParameterError("coloration: a pole lies on or outside the unit circle, so the "
                                  "filter is unstable; re-fit the model")
         frac = d["smoothing_fraction"]
