@@ -23,7 +23,7 @@ import numpy as np
 
 from measure import _files
 from measure._version import __version__
-from measure.audio_io import dumps, file_sha256, read_json, sidecar_path, stage_audio
+from measure.audio_io import check_pair, dumps, file_sha256, read_json, sidecar_path, stage_audio
 from measure.errors import AudioFileError, ParameterError
 
 __all__ = [
@@ -229,7 +229,13 @@ def list_takes(captures: str | os.PathLike[str]) -> list[Take]:
 
 def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[str, Any]]]:
     """The newest take of every position in one room's folder, with its sidecar; takes whose
-    sidecar says REDO are passed over for an older good one when there is one."""
+    sidecar says REDO are passed over for an older good one when there is one.
+
+    Raises
+    ------
+    AudioFileError
+        If a chosen take's sidecar names another WAV (:func:`measure.audio_io.check_pair`).
+    """
     folder = Path(room_folder)
     pat = re.compile(r"(.+)-take(\d+)\.wav", re.IGNORECASE)
     by_position: dict[str, list[Take]] = {}
@@ -245,7 +251,9 @@ def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[s
         docs = [(t, read_json(t.json)) for t in takes]
         good = [(t, d) for t, d in docs
                 if (d.get("verdict") or {}).get("verdict", "good") == "good"]
-        out.append((good or docs)[0])
+        chosen = (good or docs)[0]
+        check_pair(chosen[0].wav, chosen[1], side=chosen[0].json)
+        out.append(chosen)
     return sorted(out, key=lambda td: td[0].position)
 
 

@@ -206,3 +206,22 @@ def test_an_interrupt_between_the_renames_still_leaves_a_whole_pair(tmp_path, mo
         _write_run(str(tmp_path / "a.wav"), 2)
     monkeypatch.setattr(os, "replace", real_replace)
     assert _consistent_run(tmp_path / "a.wav") == 2 and _debris(tmp_path) == []
+
+
+def test_commands_refuse_a_response_whose_sidecar_names_another_wav(tmp_path, capsys):
+    # The reading side of the pair: analyze and report read IR.json beside IR.wav; a WAV
+    # swapped in from another run is one error line, never figures under the wrong conditions.
+    from measure.cli import main
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    h = room_ir(DEMO_ROOMS[0], 48000, seed=1)
+    audio_io.write_pair(tmp_path / "a.wav", 0.5 * h / np.max(np.abs(h)), 48000,
+                        {"format": "measure.ir/1"})
+    audio_io.write_audio(tmp_path / "b.wav", 0.25 * h / np.max(np.abs(h)), 48000)
+    os.replace(tmp_path / "b.wav", tmp_path / "a.wav")
+    for argv in (["analyze", str(tmp_path / "a.wav")],
+                 ["report", str(tmp_path / "a.wav"), "--out", str(tmp_path / "r.html")]):
+        assert main(argv) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and "do not belong together" in err, err
+    assert not (tmp_path / "r.html").exists()

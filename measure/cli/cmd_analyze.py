@@ -144,7 +144,7 @@ def response_context(path: str, h, fs: int, channel: int):
 
     advice = "give --sweep SWEEP.wav (the sweep that was played) to recover its response first"
     side = audio_io.sidecar_path(path)
-    doc = audio_io.read_json(side) if side.exists() else {}
+    doc = audio_io.read_sidecar(path) or {}
     fmt = doc.get("format") if isinstance(doc, dict) else None
     if fmt == TAKE_FORMAT:
         named = doc.get("sweep_file")

@@ -98,8 +98,7 @@ def _measured(path: Path, sweep_opt: str | None) -> tuple[Any, int, str]:
     from measure.errors import ParameterError
     from measure.session import TAKE_FORMAT
 
-    side = audio_io.sidecar_path(path)
-    doc = audio_io.read_json(side) if side.exists() else {}
+    doc = audio_io.read_sidecar(path) or {}
     audio = audio_io.read_audio(path)
     is_take = isinstance(doc, dict) and doc.get("format") == TAKE_FORMAT
     if not is_take and sweep_opt is not None and doc == {}:
@@ -110,7 +109,8 @@ def _measured(path: Path, sweep_opt: str | None) -> tuple[Any, int, str]:
         from measure.session import recover_take, resolve_sweep
 
         named = doc.get("sweep_file") if isinstance(doc, dict) else None
-        sweep_path = Path(sweep_opt) if sweep_opt else resolve_sweep(named, path.parent)
+        sweep_path = Path(sweep_opt) if sweep_opt else resolve_sweep(
+            named, path.parent, sha256=doc.get("sweep_sha256"))
         if sweep_path is None:
             raise ParameterError(f"{path}: a take, but its sidecar names no sweep file that "
                                  f"exists ({named!r}); give --sweep SWEEP.wav")

@@ -52,9 +52,7 @@ def _from_audio(path: Path, sweep: str | None, fit: bool) -> Any:
     from measure.report.html import room_section
 
     h, fs, kind = _measured(path, sweep)
-    side = audio_io.sidecar_path(path)
-    doc = audio_io.read_json(side) if side.exists() else None
-    doc = doc if isinstance(doc, dict) else None
+    doc = audio_io.read_sidecar(path)
     room = str(doc.get("room")) if doc and doc.get("room") else path.stem
     label = str(doc.get("position")) if doc and doc.get("position") else path.stem
     take = doc.get("take") if doc and isinstance(doc.get("take"), int) else None
@@ -113,8 +111,7 @@ def _from_results(root: Path, fit: bool) -> list[Any]:
                     raise AudioFileError(f"{ir} is at {audio.fs} Hz but the room's other "
                                          f"responses at {fs} Hz; run `measure batch` again")
                 fs, h = audio.fs, audio.x[0]
-                sc = audio_io.sidecar_path(ir)
-                side = audio_io.read_json(sc) if sc.exists() else None
+                side = audio_io.read_sidecar(ir)
             elif is_used:
                 raise AudioFileError(f"room {name!r}: the response {ir} of a used take is "
                                      "missing; run `measure batch` again")
