@@ -23,9 +23,8 @@ def room_folder(root: Path, responses: Sequence[np.ndarray], sidecars: Sequence[
     spec = SweepSpec(fs=fs, f1_hz=20.0, f2_hz=min(24000.0, fs / 2), duration_s=1.0, gap_s=1.5,
                      lead_in_s=0.2, level_dbfs=-12.0)
     sweep = make_sweep(spec)
-    sweep_wav = audio_io.write_audio(root / "sweeps" / "s.wav", sweep.program, fs,
-                                     subtype="FLOAT")
-    audio_io.write_json(audio_io.sidecar_path(sweep_wav), sweep.sidecar())
+    sweep_wav, _ = audio_io.write_pair(root / "sweeps" / "s.wav", sweep.program, fs,
+                                       sweep.sidecar(), subtype="FLOAT")
     for i, (h, side) in enumerate(zip(responses, sidecars, strict=True)):
         y = virtual_take(sweep.program, fs, h, latency_s=0.01, noise_dbfs=noise_dbfs,
                          extra_s=0.3, seed=30 + i)

@@ -63,9 +63,8 @@ def run(args: argparse.Namespace) -> int:
                              "--out a folder you may write to") from err
     info(f"{BUILDING}: measuring {len(DEMO_TAKES)} spaces with virtual equipment into {root}/")
     sweep = make_sweep(DEMO_SWEEP)
-    sweep_wav = audio_io.write_audio(root / "sweeps" / "demo-sweep.wav", sweep.program,
-                                     sweep.fs, subtype="FLOAT")
-    audio_io.write_json(audio_io.sidecar_path(sweep_wav), sweep.sidecar())
+    sweep_wav, _ = audio_io.write_pair(root / "sweeps" / "demo-sweep.wav", sweep.program,
+                                       sweep.fs, sweep.sidecar(), subtype="FLOAT")
     sweep_sha256 = audio_io.file_sha256(sweep_wav)  # one file, hashed once for every take
     captures = root / "captures"
     rows = []
