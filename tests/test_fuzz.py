@@ -403,7 +403,7 @@ def mutated(draw, valid: dict, paths: list):
         if how == "replace":
             parent[key] = draw(JSON_VALUES)
         elif how == "scale" and isinstance(parent[key], (int, float)) \
-                and not isinstance(parent[key], bool):
+                and not isinstance(parent[key], bool) and abs(parent[key]) < 1e300:
             parent[key] = parent[key] * draw(st.sampled_from((-1, 0, 1e-9, 1e9, 1e300, 2.5)))
         elif how == "delete":
             del parent[key]
