@@ -416,3 +416,18 @@ def test_import_refuses_impossible_conditions(room_files, capsys, option, value,
 ])
 def test_nan_and_inf_options_are_refused_everywhere(room_files, capsys, argv, needle):
     _refused(argv, room_files, capsys, needle)
+
+
+@pytest.mark.parametrize("argv, needle", [
+    # the model file holds orders 1..64 and at most 400 echoes (measure.model.modelfile); an
+    # option beyond them is refused before the fit, not after seconds of work
+    (["fit", "{d}/ir.wav", "--out", "{d}/m.json", "--order", "100000"], "from 1 to 64"),
+    (["fit", "{d}/ir.wav", "--out", "{d}/m.json", "--echoes", "100000"], "from 0 to 400"),
+    (["render", "{d}/model.json", "--out", "{d}/r.wav", "--rate", "1000"], "8000 and 384000"),
+    # the channel options of capture are checked before any sound device is opened
+    (["capture", "--sweep", "{d}/s.wav", "--room", "r", "--position", "p", "--input-channels",
+      "2", "--loopback-channel", "2", "--yes"], "referenced to itself"),
+])
+def test_options_beyond_what_a_command_can_make_are_refused_first(room_files, capsys, argv,
+                                                                  needle):
+    _refused(argv, room_files, capsys, needle)

@@ -119,11 +119,6 @@ def setup_devices(args: argparse.Namespace) -> dict[str, Any]:
     from measure.capture import list_devices, resolve_device
     from measure.errors import ParameterError
 
-    devices = list_devices()
-    in_spec = args.input_device if args.input_device is not None else args.device
-    out_spec = args.output_device if args.output_device is not None else args.device
-    in_dev = resolve_device(in_spec, "input", devices)
-    out_dev = resolve_device(out_spec, "output", devices)
     in_ch = parse_channels(args.input_channels, "--input-channels")
     loop = None
     if args.loopback_channel is not None:
@@ -135,12 +130,20 @@ def setup_devices(args: argparse.Namespace) -> dict[str, Any]:
             in_ch.append(loop)
         if len(in_ch) < 2:
             raise ParameterError(
-                "--loopback-channel needs a microphone channel too; give it in --input-channels, "
-                "e.g. --input-channels 1,2 --loopback-channel 2")
+                f"--loopback-channel {loop + 1} is the only input channel: a channel referenced "
+                "to itself gives a unit impulse at latency 0, not the room; the "
+                "--loopback-channel needs a microphone channel too, give it in "
+                "--input-channels, e.g. --input-channels 1,2 --loopback-channel 2")
     if args.output_channels is not None:
         out_ch = parse_channels(args.output_channels, "--output-channels")
     else:
         out_ch = [0] + ([loop] if loop is not None and loop != 0 else [])
+    # the channel options are checked first: a mistake there needs no sound device to report
+    devices = list_devices()
+    in_spec = args.input_device if args.input_device is not None else args.device
+    out_spec = args.output_device if args.output_device is not None else args.device
+    in_dev = resolve_device(in_spec, "input", devices)
+    out_dev = resolve_device(out_spec, "output", devices)
     return {"input_device": in_dev, "output_device": out_dev, "input_channels": in_ch,
             "output_channels": out_ch, "loopback": loop}
 

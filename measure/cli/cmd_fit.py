@@ -57,22 +57,26 @@ def run(args: argparse.Namespace) -> int:
         refuse_overwriting_inputs,
     )
     from measure.errors import ParameterError
-    from measure.model.fit import fit_with_i3dl2
+    from measure.model.modelfile import MAX_ECHOES, ORDER_RANGE
 
     out = Path(args.out)
     if out.suffix.lower() != ".json":
         raise ParameterError(f"--out {args.out!r} must end in .json; name the model e.g. room.json")
     refuse_overwriting_inputs(args.out, args.ir)
-    if args.order is not None and args.order < 1:
-        raise ParameterError(f"--order {args.order} must be >= 1 (e.g. 4 or 8)")
-    if args.echoes is not None and args.echoes < 0:
-        raise ParameterError(f"--echoes {args.echoes} must be >= 0")
+    if args.order is not None and not ORDER_RANGE[0] <= args.order <= ORDER_RANGE[1]:
+        raise ParameterError(f"--order {args.order} must be from {ORDER_RANGE[0]} to "
+                             f"{ORDER_RANGE[1]} (e.g. 4 or 8)")
+    if args.echoes is not None and not 0 <= args.echoes <= MAX_ECHOES:
+        raise ParameterError(f"--echoes {args.echoes} must be from 0 to {MAX_ECHOES} (the most "
+                             "a model file holds); give fewer, or leave it out for those that "
+                             "stand out")
     if args.plot is not None:  # before any work, so nothing is written when it cannot be drawn
         from measure.report import check_png_path, require_matplotlib
 
         check_png_path(args.plot, option="--plot")
         require_matplotlib()
     audio = audio_io.read_audio(args.ir)
+    from measure.model.fit import fit_with_i3dl2
     h = audio.x[channel_index(args.channel, audio.n_channels, option="--channel",
                               source=args.ir)]
     source = {"file": Path(args.ir).name, "sha256": audio_io.file_sha256(args.ir),

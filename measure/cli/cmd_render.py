@@ -32,19 +32,22 @@ def run(args: argparse.Namespace) -> int:
     from measure import audio_io
     from measure.cli._common import info, refuse_overwriting_inputs
     from measure.errors import ParameterError
-    from measure.model.modelfile import model_from_dict
-    from measure.model.render import default_seconds, render_model
 
     out = Path(args.out)
     if out.suffix.lower() != ".wav":
         raise ParameterError(f"--out {args.out!r} must end in .wav; name it e.g. model_ir.wav")
     refuse_overwriting_inputs(args.out, args.model)
+    if args.rate is not None:  # the options first: no model to load to refuse them
+        _check_rate(args.rate, f"--rate {args.rate}")
+    if args.seconds is not None:
+        _check_seconds(args.seconds)
+
+    from measure.model.modelfile import model_from_dict
+    from measure.model.render import default_seconds, render_model
+
     model = model_from_dict(audio_io.read_json(args.model, what="model file"))
     fs = model.fit_fs if args.rate is None else args.rate
-    if not 8000 <= fs <= 384000:
-        given = f"--rate {fs}" if args.rate is not None else f"the model's fitting rate {fs} Hz"
-        raise ParameterError(f"{given} is not a sample rate between 8000 and 384000 Hz; give "
-                             "--rate in that range, e.g. --rate 48000")
+    _check_rate(fs, f"the model's fitting rate {fs} Hz")
     seconds = default_seconds(model) if args.seconds is None else args.seconds
     if args.seconds is not None:
         need = minimum_seconds(model)
@@ -56,9 +59,7 @@ def run(args: argparse.Namespace) -> int:
                 f"decay, T60/6 = {max(model.late.t60_s) / 6:.3f} s, that EDT needs, "
                 "ISO 3382-1 A.2.2); give --seconds of at least that, or leave it out for the whole "
                 "decay")
-    if not (seconds > 0) or seconds > 120:
-        raise ParameterError(f"--seconds {seconds} must be > 0 and at most 120; give a length "
-                             "in that range")
+    _check_seconds(seconds)
     h = render_model(model, fs, seconds)
     audio_io.write_audio(out, h, fs, subtype="FLOAT")
     info(f"wrote {out}: {h.size / fs:.2f} s at {fs} Hz, mono 32-bit float")
@@ -73,3 +74,19 @@ def minimum_seconds(model) -> float:
 
     s = model.direct_delay_s + model.late.start_s + max(model.late.t60_s) / 6.0
     return math.ceil(s * 1000.0 - 1e-9) / 1000.0
+
+
+def _check_rate(fs: int, given: str) -> None:
+    from measure.errors import ParameterError
+
+    if not 8000 <= fs <= 384000:
+        raise ParameterError(f"{given} is not a sample rate between 8000 and 384000 Hz; give "
+                             "--rate in that range, e.g. --rate 48000")
+
+
+def _check_seconds(seconds: float) -> None:
+    from measure.errors import ParameterError
+
+    if not (seconds > 0) or seconds > 120:
+        raise ParameterError(f"--seconds {seconds} must be > 0 and at most 120; give a length "
+                             "in that range")
