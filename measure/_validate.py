@@ -26,7 +26,7 @@ def check_positive(value: Any, name: str, *, unit: str = "") -> float:
     """Return ``value`` as a float if it is finite and > 0, else raise (NaN fails)."""
     try:
         v = float(value)
-    except (TypeError, ValueError) as err:
+    except (TypeError, ValueError, OverflowError) as err:
         raise ParameterError(f"{name}={value!r} is not a number; give a positive value") from err
     if not (v > 0) or not np.isfinite(v):
         suffix = f" {unit}" if unit else ""
@@ -38,7 +38,7 @@ def check_nonnegative(value: Any, name: str, *, unit: str = "") -> float:
     """Return ``value`` as a float if it is finite and >= 0, else raise (NaN fails)."""
     try:
         v = float(value)
-    except (TypeError, ValueError) as err:
+    except (TypeError, ValueError, OverflowError) as err:
         raise ParameterError(f"{name}={value!r} is not a number; give a value >= 0") from err
     if not (v >= 0) or not np.isfinite(v):
         suffix = f" {unit}" if unit else ""

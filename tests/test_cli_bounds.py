@@ -431,3 +431,32 @@ def test_nan_and_inf_options_are_refused_everywhere(room_files, capsys, argv, ne
 def test_options_beyond_what_a_command_can_make_are_refused_first(room_files, capsys, argv,
                                                                   needle):
     _refused(argv, room_files, capsys, needle)
+
+
+def test_a_reader_that_goes_away_ends_the_command_quietly_with_141(tmp_path):
+    # `measure analyze IR.wav --json | head` ended in a BrokenPipeError traceback. It now stops
+    # as a program killed by SIGPIPE would, status 128 + 13 (common practice; Python docs,
+    # "Note on SIGPIPE", for the /dev/null redirection), with nothing on stderr.
+    import subprocess
+    import sys
+
+    from measure.audio_io import write_audio
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    h = room_ir(DEMO_ROOMS[0], 48000, seed=1)
+    write_audio(tmp_path / "ir.wav", 0.5 * h / np.max(np.abs(h)), 48000)
+    p = subprocess.Popen([sys.executable, "-m", "measure", "analyze", str(tmp_path / "ir.wav"),
+                          "--json"], stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    p.stdout.close()
+    err = p.stderr.read().decode()
+    assert p.wait(60) == 141 and err == ""
+
+
+def test_an_integer_too_large_for_a_float_is_a_parameter_error():
+    # Fuzzing (issue 12): float(10**400) raises OverflowError, which escaped the checks.
+    from measure._validate import check_nonnegative, check_positive
+    from measure.errors import ParameterError
+
+    for check in (check_positive, check_nonnegative):
+        with pytest.raises(ParameterError, match="not a number"):
+            check(10**400, "x")

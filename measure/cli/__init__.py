@@ -10,6 +10,7 @@ traceback.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import importlib
 import sys
 from collections.abc import Sequence
@@ -87,10 +88,22 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ValueError:  # not the main thread: leave the signal alone
         previous = None
     try:
-        return _main(argv)
+        code = _main(argv)
+        sys.stdout.flush()  # here, where a reader gone away is caught, not at exit
+        return code
     except _Terminated:
         print("error: terminated; nothing half-written was kept", file=sys.stderr)
         return 143
+    except BrokenPipeError:
+        # The reader of stdout went away (`measure analyze IR.wav | head`): stop quietly, as a
+        # program killed by SIGPIPE would (128 + 13); stdout goes to /dev/null so that Python's
+        # own flush at exit does not print a traceback (Python docs, "Note on SIGPIPE").
+        import os
+
+        with contextlib.suppress(OSError, ValueError):
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
+        return 141
     finally:
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)

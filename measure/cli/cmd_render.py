@@ -86,7 +86,8 @@ def _check_rate(fs: int, given: str) -> None:
 
 def _check_seconds(seconds: float) -> None:
     from measure.errors import ParameterError
+    from measure.model.modelfile import MAX_RENDER_S
 
-    if not (seconds > 0) or seconds > 120:
-        raise ParameterError(f"--seconds {seconds} must be > 0 and at most 120; give a length "
-                             "in that range")
+    if not (seconds > 0) or seconds > MAX_RENDER_S:
+        raise ParameterError(f"--seconds {seconds} must be > 0 and at most {MAX_RENDER_S:g}; "
+                             "give a length in that range")

@@ -24,7 +24,7 @@ old pair is then kept beside the new one as OUT.replaced-XXXXXXXX.wav/.json (its
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    from measure.cli._common import positive_float
+    from measure.cli._common import finite_float, positive_float
 
     p.add_argument("out", metavar="OUT.wav", help="sweep file to write (its .json goes beside it)")
     p.add_argument("--rate", type=int, default=48000, metavar="HZ",
@@ -33,20 +33,20 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="start frequency in Hz (default 20)")
     p.add_argument("--f2", type=positive_float, default=None, metavar="HZ",
                    help="stop frequency in Hz (default: Nyquist, rate/2)")
-    p.add_argument("--duration", type=float, default=5.0, metavar="S",
+    p.add_argument("--duration", type=finite_float, default=5.0, metavar="S",
                    help="seconds of one sweep (default 5)")
     p.add_argument("--repeats", type=int, default=1, metavar="N",
                    help="number of sweeps, averaged coherently when the IR is recovered (default 1)")
-    p.add_argument("--gap", type=float, default=2.0, metavar="S",
+    p.add_argument("--gap", type=finite_float, default=2.0, metavar="S",
                    help="seconds of silence after each sweep, for the room's tail; at least the "
                         "reverberation time (default 2)")
-    p.add_argument("--lead-in", type=float, default=0.5, metavar="S",
+    p.add_argument("--lead-in", type=finite_float, default=0.5, metavar="S",
                    help="seconds of silence before the first sweep (default 0.5)")
-    p.add_argument("--level", type=float, default=None, metavar="DBFS",
+    p.add_argument("--level", type=finite_float, default=None, metavar="DBFS",
                    help="peak level in dBFS (default -20, deliberately low)")
-    p.add_argument("--fade-in", type=float, default=None, metavar="S",
+    p.add_argument("--fade-in", type=finite_float, default=None, metavar="S",
                    help="half-Hann fade-in in seconds (default: a tenth of the first octave)")
-    p.add_argument("--fade-out", type=float, default=0.002, metavar="S",
+    p.add_argument("--fade-out", type=finite_float, default=0.002, metavar="S",
                    help="half-Hann fade-out in seconds (default 0.002)")
     p.add_argument("--force", action="store_true",
                    help="replace an existing OUT.wav that holds another sweep (the old pair is "
