@@ -20,6 +20,22 @@ def finite_float(text: str) -> float:
     return v
 
 
+def add_condition_arguments(p: Any) -> None:
+    """The conditions of a take, kept in its sidecar: --distance, --angle, --temperature,
+    --humidity, --notes, --label (capture and import)."""
+    p.add_argument("--distance", type=positive_float, metavar="M",
+                   help="source-microphone distance in m (> 0)")
+    p.add_argument("--angle", type=finite_float, metavar="DEG",
+                   help="angle of the microphone off the source's axis, in degrees")
+    p.add_argument("--temperature", type=finite_float, metavar="C",
+                   help="air temperature in deg C")
+    p.add_argument("--humidity", type=finite_float, metavar="PERCENT",
+                   help="relative humidity in %% (0..100)")
+    p.add_argument("--notes", metavar="TEXT", help="free text kept in the sidecar")
+    p.add_argument("--label", action="append", default=[], metavar="TEXT",
+                   help="extra label kept in the sidecar (repeatable)")
+
+
 def positive_float(text: str) -> float:
     """argparse type: a finite number > 0."""
     v = finite_float(text)

@@ -9,7 +9,7 @@ import sys
 import time
 from typing import Any
 
-from measure.cli._common import finite_float, positive_float
+from measure.cli._common import add_condition_arguments
 
 NAME = "capture"
 HELP = "play a sweep and record the room: one take, saved before anything else, then judged"
@@ -77,17 +77,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     add_device_arguments(p)
     p.add_argument("--captures", metavar="DIR", default="captures",
                    help="captures folder (default ./captures)")
-    p.add_argument("--distance", type=positive_float, metavar="M",
-                   help="source-microphone distance in m (> 0)")
-    p.add_argument("--angle", type=finite_float, metavar="DEG",
-                   help="angle of the microphone off the source's axis, in degrees")
-    p.add_argument("--temperature", type=finite_float, metavar="C",
-                   help="air temperature in deg C")
-    p.add_argument("--humidity", type=finite_float, metavar="PERCENT",
-                   help="relative humidity in %% (0..100)")
-    p.add_argument("--notes", metavar="TEXT", help="free text kept in the sidecar")
-    p.add_argument("--label", action="append", default=[], metavar="TEXT",
-                   help="extra label kept in the sidecar (repeatable)")
+    add_condition_arguments(p)
     p.add_argument("--no-level-check", action="store_true",
                    help="skip the level check before the take")
     p.add_argument("--json", action="store_true", help="print the summary as JSON on stdout")

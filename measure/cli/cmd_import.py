@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from measure.cli._common import finite_float, positive_float
+from measure.cli._common import add_condition_arguments
 
 NAME = "import"
 HELP = "file a recording made by another device (handheld recorder, phone) as a take"
@@ -37,17 +37,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="what recorded it, e.g. 'handheld recorder, internal mics'")
     p.add_argument("--player", metavar="TEXT",
                    help="what played the sweep, e.g. 'phone into a powered monitor'")
-    p.add_argument("--distance", type=positive_float, metavar="M",
-                   help="source-microphone distance in m (> 0)")
-    p.add_argument("--angle", type=finite_float, metavar="DEG",
-                   help="angle off the source's axis, deg")
-    p.add_argument("--temperature", type=finite_float, metavar="C",
-                   help="air temperature in deg C")
-    p.add_argument("--humidity", type=finite_float, metavar="PERCENT",
-                   help="relative humidity in %% (0..100)")
-    p.add_argument("--notes", metavar="TEXT", help="free text kept in the sidecar")
-    p.add_argument("--label", action="append", default=[], metavar="TEXT",
-                   help="extra label kept in the sidecar (repeatable)")
+    add_condition_arguments(p)
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
 
 
