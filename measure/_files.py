@@ -19,8 +19,9 @@ of more than one file, three more things make the *set* all-or-nothing:
   when it can take that lock (its writer is gone), so it never removes another run's work in
   progress, yet removes every temporary a killed run left.
 
-On a system without ``fcntl`` (Windows) there are no locks: the renames still happen in a fixed
-order, and the clean-up removes only temporaries older than an hour.
+On a system without ``fcntl`` (Windows), or a file system that refuses ``flock`` (some network
+mounts), there are no locks: the renames still happen in a fixed order, and the clean-up removes
+only temporaries and intents older than an hour.
 
 Every :class:`FileSet` cleans its folders once per process, before writing into them.
 """
@@ -57,35 +58,47 @@ _STALE_WITHOUT_LOCKS_S = 3600.0
 _cleaned: set[str] = set()
 
 
-def _lock(fd: int, *, block: bool = True) -> bool:
-    """An exclusive flock on ``fd``; False if ``block`` is off and another holder has it."""
+#: What :func:`_lock` found: the lock is ours, another process holds it, or there are no locks.
+LOCKED, BUSY, UNSUPPORTED = "locked", "busy", "unsupported"
+
+
+def _lock(fd: int, *, block: bool = True) -> str:
+    """An exclusive flock on ``fd``: LOCKED; BUSY if ``block`` is off and another process has
+    it; UNSUPPORTED without fcntl or on a file system that refuses flock (go on unlocked)."""
     if fcntl is None:
-        return True
+        return UNSUPPORTED
     try:
         fcntl.flock(fd, fcntl.LOCK_EX | (0 if block else fcntl.LOCK_NB))
     except BlockingIOError:
-        return False
-    except OSError:  # a file system without flock (some network mounts): go on unlocked
-        return True
-    return True
+        return BUSY
+    except OSError:  # some network mounts
+        return UNSUPPORTED
+    return LOCKED
 
 
 @contextlib.contextmanager
-def _folder_locked(folder: Path) -> Iterator[None]:
-    """Hold an exclusive lock of ``folder`` itself (no lock file is left behind)."""
+def _folder_locked(folder: Path) -> Iterator[bool]:
+    """Hold an exclusive lock of ``folder`` itself (no lock file is left behind); the value is
+    whether there is a lock at all (False without flock, where the age rule applies)."""
     if fcntl is None:
-        yield
+        yield False
         return
     try:
         fd = os.open(folder, os.O_RDONLY)
     except OSError:
-        yield
+        yield False
         return
     try:
-        _lock(fd)
-        yield
+        yield _lock(fd) == LOCKED
     finally:
         os.close(fd)  # closing the descriptor releases the lock
+
+
+def _old(path: Path) -> bool:
+    try:
+        return time.time() - path.stat().st_mtime > _STALE_WITHOUT_LOCKS_S
+    except OSError:
+        return False
 
 
 def _fsync_dir(folder: Path) -> None:
@@ -122,19 +135,23 @@ def clean_folder(folder: str | os.PathLike[str], *, force: bool = False) -> tupl
     if (key in _cleaned and not force) or not p.is_dir():
         return 0, 0
     _cleaned.add(key)
-    rolled = removed = 0
-    with _folder_locked(p):
+    with _folder_locked(p) as locked:
         try:
-            names = [n for n in os.listdir(p) if _OURS.fullmatch(n)]
+            rolled = _finish_dead_commits(p, locked)
+            removed = sum(_remove_if_stale(p / name) for name in sorted(os.listdir(p))
+                          if _OURS.fullmatch(name) and name.endswith(TEMP_SUFFIX))
         except OSError:
             return 0, 0
-        # Intents first: under the folder lock an intent belongs to a run that died mid-commit.
-        for name in sorted(n for n in names if n.endswith(INTENT_SUFFIX)):
-            rolled += _roll_forward(p, name)
-        for name in sorted(n for n in os.listdir(p) if _OURS.fullmatch(n)
-                           and n.endswith(TEMP_SUFFIX)):
-            removed += _remove_if_stale(p / name)
     return rolled, removed
+
+
+def _finish_dead_commits(folder: Path, locked: bool) -> int:
+    """Roll forward the intents in ``folder``; the caller holds the folder lock, so with locks
+    every intent belongs to a run that died mid-commit. Without locks only an intent older
+    than an hour is taken as dead (a young one may be another run's commit in progress)."""
+    names = sorted(n for n in os.listdir(folder)
+                   if _OURS.fullmatch(n) and n.endswith(INTENT_SUFFIX))
+    return sum(_roll_forward(folder, n) for n in names if locked or _old(folder / n))
 
 
 def _roll_forward(folder: Path, name: str) -> int:
@@ -154,8 +171,12 @@ def _roll_forward(folder: Path, name: str) -> int:
         try:
             if (folder / tmp).exists():
                 os.replace(folder / tmp, folder / target)
-        except OSError:  # cannot be finished: what is left goes as stale temporaries
+        except OSError:
+            # Cannot be finished: stop in order, so a sidecar (renamed last) is never newer
+            # than its WAV; what is left goes as stale temporaries and a mismatched pair is
+            # refused on reading by its hash.
             done = 0
+            break
     _fsync_dir(folder)
     with contextlib.suppress(OSError):
         os.unlink(intent)
@@ -168,18 +189,26 @@ def _remove_if_stale(path: Path) -> int:
         fd = os.open(path, os.O_RDONLY)
     except OSError:
         return 0
+    removed = 0
     try:
-        if fcntl is None:
+        state = _lock(fd, block=False)
+        if state == UNSUPPORTED:
             stale = time.time() - os.fstat(fd).st_mtime > _STALE_WITHOUT_LOCKS_S
         else:
-            stale = _lock(fd, block=False)
-        if stale:
+            stale = state == LOCKED
+        if stale and fcntl is not None:
+            # Unlinked while the lock is held: a writer that opened this name an instant ago
+            # waits for the lock, then finds its inode gone and takes another name.
             with contextlib.suppress(OSError):
                 os.unlink(path)
-                return 1
+                removed = 1
     finally:
         os.close(fd)
-    return 0
+    if stale and fcntl is None:  # Windows removes no open file: closed first
+        with contextlib.suppress(OSError):
+            os.unlink(path)
+            removed = 1
+    return removed
 
 
 class FileSet:
@@ -207,13 +236,19 @@ class FileSet:
             folder.mkdir(parents=True, exist_ok=True)
             clean_folder(folder)
             tmp, fd = self._new_temporary(target)
-        # mkstemp-like files are owner-only; give it the permissions of any new file
-        umask = os.umask(0)
-        os.umask(umask)
-        with contextlib.suppress(OSError, AttributeError):  # no fchmod on Windows
-            os.fchmod(fd, 0o666 & ~umask)
-        fh = os.fdopen(os.dup(fd), "w+b")
-        self._staged.append((tmp, target, fd, fh))
+        try:
+            # mkstemp-like files are owner-only; give it the permissions of any new file
+            umask = os.umask(0)
+            os.umask(umask)
+            with contextlib.suppress(OSError, AttributeError):  # no fchmod on Windows
+                os.fchmod(fd, 0o666 & ~umask)
+            fh = os.fdopen(os.dup(fd), "w+b")
+            self._staged.append((tmp, target, fd, fh))
+        except BaseException:  # interrupted before it was tracked: it goes now
+            os.close(fd)
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+            raise
         return fh
 
     @staticmethod
@@ -279,11 +314,16 @@ class FileSet:
                 fh.flush()
                 os.fsync(fh.fileno())
                 fh.close()
-            if len(self._staged) == 1:
-                tmp, target = self._staged[0][:2]
-                os.replace(tmp, target)
-            else:
-                with _folder_locked(folder):
+            if fcntl is None:  # Windows renames no open file (and there is no lock to keep)
+                self._close_descriptors()
+            with _folder_locked(folder) as locked:
+                # A run that died mid-commit after this one began would, rolled forward later,
+                # put its files over part of this set: its commit is finished first.
+                _finish_dead_commits(folder, locked)
+                if len(self._staged) == 1:
+                    tmp, target = self._staged[0][:2]
+                    os.replace(tmp, target)
+                else:
                     intent = folder / f".{first.name}.{secrets.token_hex(8)}{INTENT_SUFFIX}"
                     doc = {"rename": [[t.name, g.name] for t, g, _, _ in self._staged]}
                     fd = os.open(intent, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
@@ -312,15 +352,24 @@ class FileSet:
         """Remove every temporary still staged (the targets are left as they were)."""
         self._release(unlink=True)
 
-    def _release(self, *, unlink: bool) -> None:
-        for tmp, _, fd, fh in self._staged:
+    def _close_descriptors(self) -> None:
+        # Closing a temporary's first descriptor releases its lock; -1 marks it closed.
+        for i, (tmp, target, fd, fh) in enumerate(self._staged):
             with contextlib.suppress(OSError):
                 fh.close()
-            if unlink:
-                with contextlib.suppress(FileNotFoundError, OSError):
+            if fd >= 0:
+                with contextlib.suppress(OSError):
+                    os.close(fd)
+                self._staged[i] = (tmp, target, -1, fh)
+
+    def _release(self, *, unlink: bool) -> None:
+        # Closed before unlinked (Windows removes no open file); names are random, so no other
+        # run can have taken a temporary's name in between.
+        self._close_descriptors()
+        if unlink:
+            for tmp, _, _, _ in self._staged:
+                with contextlib.suppress(OSError):
                     os.unlink(tmp)
-            with contextlib.suppress(OSError):
-                os.close(fd)
         self._staged = []
 
 

@@ -208,6 +208,76 @@ def test_an_interrupt_between_the_renames_still_leaves_a_whole_pair(tmp_path, mo
     assert _consistent_run(tmp_path / "a.wav") == 2 and _debris(tmp_path) == []
 
 
+def _age(path: Path, seconds: float) -> None:
+    t = time.time() - seconds
+    os.utime(path, (t, t))
+
+
+def test_without_flock_only_old_temporaries_and_intents_are_taken_as_dead(tmp_path, monkeypatch):
+    # A file system that refuses flock (some network mounts) cannot tell a live temporary from
+    # a dead one: the age rule decides (older than an hour), so another run's work in progress
+    # is never removed, and a young intent (a commit in progress) is not rolled forward.
+    def no_flock(fd, op):
+        raise OSError(95, "Operation not supported")
+
+    monkeypatch.setattr(_files.fcntl, "flock", no_flock)
+    _write_run(str(tmp_path / "c.wav"), 1)
+    young, old = tmp_path / ".a.wav.000000000000000a.part", tmp_path / ".b.wav.000000000000000b.part"
+    young.write_bytes(b"another run, writing now")
+    old.write_bytes(b"left by a run killed yesterday")
+    _age(old, 2 * 3600)
+    intent = tmp_path / ".c.wav.00000000000000cc.commit"
+    intent.write_text(json.dumps({"rename": [[young.name, "c.wav"]]}))
+    assert _files.clean_folder(tmp_path, force=True) == (0, 1)
+    assert young.exists() and intent.exists() and not old.exists()
+    assert _consistent_run(tmp_path / "c.wav") == 1
+    _age(intent, 2 * 3600)
+    _age(young, 2 * 3600)
+    assert _files.clean_folder(tmp_path, force=True)[0] == 1  # dead now: finished
+    assert not intent.exists()
+
+
+def test_a_dead_runs_intent_is_finished_before_a_new_set_is_committed(tmp_path):
+    # A run killed mid-commit after this run cleaned the folder leaves an intent whose later
+    # roll-forward would put part of its set over this run's: the commit finishes it first, so
+    # what stands is this run's whole pair.
+    _write_run(str(tmp_path / "a.wav"), 1)
+    _write_run(str(tmp_path / "dead.wav"), 3)
+    tmp_json = ".a.json.00000000000000aa.part"
+    os.replace(tmp_path / "dead.json", tmp_path / tmp_json)
+    os.replace(tmp_path / "dead.wav", tmp_path / "a.wav")  # the dead run's first rename
+    (tmp_path / ".a.wav.00000000000000bb.commit").write_text(json.dumps(
+        {"rename": [[".a.wav.00000000000000cc.part", "a.wav"], [tmp_json, "a.json"]]}))
+    _files._cleaned.add(str(tmp_path.resolve()))  # this run cleaned before the intent appeared
+    _write_run(str(tmp_path / "a.wav"), 2)
+    assert _files.clean_folder(tmp_path, force=True) == (0, 0)  # nothing left to roll forward
+    assert _consistent_run(tmp_path / "a.wav") == 2 and _debris(tmp_path) == []
+
+
+def test_a_roll_forward_that_cannot_finish_stops_in_order(tmp_path):
+    # The WAV's rename fails (its name became a folder): the sidecar, renamed after it, is not
+    # put beside an old WAV it does not describe.
+    _write_run(str(tmp_path / "new.wav"), 2)
+    os.replace(tmp_path / "new.wav", tmp_path / ".a.wav.00000000000000cc.part")
+    os.replace(tmp_path / "new.json", tmp_path / ".a.json.00000000000000aa.part")
+    (tmp_path / "a.wav").mkdir()
+    (tmp_path / ".a.wav.00000000000000bb.commit").write_text(json.dumps(
+        {"rename": [[".a.wav.00000000000000cc.part", "a.wav"],
+                    [".a.json.00000000000000aa.part", "a.json"]]}))
+    assert _files.clean_folder(tmp_path, force=True) == (0, 2)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.wav"]
+
+
+def test_an_interrupt_while_a_temporary_is_opened_leaves_none(tmp_path, monkeypatch):
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(_files.os, "fdopen", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        _files.FileSet().open(tmp_path / "a.wav")
+    assert _debris(tmp_path) == []
+
+
 def test_commands_refuse_a_response_whose_sidecar_names_another_wav(tmp_path, capsys):
     # The reading side of the pair: analyze and report read IR.json beside IR.wav; a WAV
     # swapped in from another run is one error line, never figures under the wrong conditions.
