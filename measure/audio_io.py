@@ -38,6 +38,8 @@ __all__ = [
     "read_text",
     "dumps",
     "sidecar_path",
+    "replaced_path",
+    "refuse_replacing_take",
     "file_sha256",
     "atomic_writer",
     "read_sweep",
@@ -83,6 +85,13 @@ class Audio:
 def sidecar_path(path: str | os.PathLike[str]) -> Path:
     """The JSON sidecar that belongs to an audio file: same folder, same stem, ``.json``."""
     return Path(path).with_suffix(".json")
+
+
+def replaced_path(path: str | os.PathLike[str], sha256: str) -> Path:
+    """Where a file replaced with ``--force`` is kept: ``STEM.replaced-XXXXXXXX.SUFFIX`` beside
+    it, with the first 8 hex digits of its old content's SHA-256."""
+    p = Path(path)
+    return p.with_name(f"{p.stem}.replaced-{sha256[:8]}{p.suffix}")
 
 
 def read_audio(path: str | os.PathLike[str]) -> Audio:
@@ -222,12 +231,12 @@ def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
     if "b" not in mode:
         raise ValueError("atomic_writer writes bytes; open it with mode 'wb'")
     target = Path(path)
-    _refuse_replacing_take(target)
+    refuse_replacing_take(target)
     with file_set() as files:
         yield files.open(target)
 
 
-def _refuse_replacing_take(target: Path) -> None:
+def refuse_replacing_take(target: Path) -> None:
     """Takes are never overwritten: refuse to write a take's WAV or its sidecar."""
     side = target if target.suffix.lower() == ".json" else sidecar_path(target)
     if not (target.exists() and side.is_file()):
@@ -324,7 +333,7 @@ def write_pairs(pairs, *, subtype: Subtype = "FLOAT") -> list[tuple[Path, Path]]
     with file_set() as files:
         for path, x, fs, sidecar in pairs:
             target = Path(path)
-            _refuse_replacing_take(target)
+            refuse_replacing_take(target)
             sha = stage_audio(files, target, x, fs, subtype=subtype)
             side = sidecar_path(target)
             files.open(side).write((dumps({**sidecar, "audio_sha256": sha}) + "\n")

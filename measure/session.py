@@ -23,7 +23,15 @@ import numpy as np
 
 from measure import _files
 from measure._version import __version__
-from measure.audio_io import check_pair, dumps, file_sha256, read_json, sidecar_path, stage_audio
+from measure.audio_io import (
+    check_pair,
+    dumps,
+    file_sha256,
+    read_json,
+    replaced_path,
+    sidecar_path,
+    stage_audio,
+)
 from measure.errors import AudioFileError, ParameterError
 
 __all__ = [
@@ -270,15 +278,16 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
     if not named:
         return None
     p, folder = Path(named), Path(room_folder)
-    for cand in (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
-                 folder.parent / "sweeps" / p.name):
-        if cand.exists():
-            if isinstance(sha256, str) and len(sha256) >= 8:
-                kept = cand.with_name(f"{cand.stem}.replaced-{sha256[:8]}{cand.suffix}")
-                if kept.exists() and file_sha256(kept) == sha256 != file_sha256(cand):
-                    return kept
-            return cand
-    return None
+    places = (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
+              folder.parent / "sweeps" / p.name)
+    if isinstance(sha256, str) and len(sha256) >= 8:
+        # The very sweep first, under its own name or kept aside (also when a replacement was
+        # interrupted before the new file was in place).
+        for cand in places:
+            for path in (cand, replaced_path(cand, sha256)):
+                if path.is_file() and file_sha256(path) == sha256:
+                    return path
+    return next((cand for cand in places if cand.exists()), None)
 
 
 def recover_take(audio: Any, sidecar: dict[str, Any], sweep: Any, *, name: str = "the take"):

@@ -161,6 +161,59 @@ def test_a_sweep_that_takes_name_is_never_replaced_without_force(tmp_path, capsy
     assert session.resolve_sweep("s.wav", room) == out
 
 
+def _listing(folder: Path) -> dict[str, bytes]:
+    return {p.name: p.read_bytes() for p in folder.rglob("*") if p.is_file()}
+
+
+def test_sweep_force_never_replaces_a_take(tmp_path, capsys):
+    # Issue "Never lose a take": takes are never overwritten at all, --force or not.
+    from measure import session
+
+    t = session.save_take(tmp_path, "hall", "S1", np.zeros((1, 4800)), 48000, {})
+    before = _listing(tmp_path)
+    for force in ([], ["--force"]):
+        code, _, err = run(["sweep", str(t.wav), "--duration", "1", *force], capsys)
+        assert code == 2 and err.count("\n") == 1 and "never overwritten" in err
+        assert _listing(tmp_path) == before
+
+
+def test_sweep_over_a_file_that_is_not_a_sweep_says_so(tmp_path, capsys):
+    out = tmp_path / "Voice.WAV"
+    _write(out, np.zeros(4800))
+    code, _, err = run(["sweep", str(out), "--duration", "1"], capsys)
+    assert code == 2 and "not a sweep this tool wrote" in err and "--force" in err
+    code, _, err = run(["sweep", str(out), "--duration", "1", "--force"], capsys)
+    assert code == 0
+    kept = [p.name for p in tmp_path.iterdir() if ".replaced-" in p.name]
+    assert len(kept) == 1 and kept[0].endswith(".WAV")  # the suffix as the user spelled it
+
+
+def test_an_interrupted_sweep_force_leaves_the_old_sweep_findable(tmp_path, capsys, monkeypatch):
+    # --force dies after the old pair was kept and before the new pair is in place (here the
+    # write fails; a SIGKILL at that moment leaves the same): the takes' sweep is still found.
+    from measure import audio_io, session
+    from measure.errors import AudioFileError
+
+    out = tmp_path / "sweeps" / "s.wav"
+    assert run(["sweep", str(out), "--duration", "1", "--gap", "0.5"], capsys)[0] == 0
+    old_sha = audio_io.file_sha256(out)
+
+    def fails(*args, **kwargs):
+        raise AudioFileError("cannot write into the folder (disk full); free some space")
+
+    monkeypatch.setattr(audio_io, "write_pair", fails)
+    code, _, err = run(["sweep", str(out), "--duration", "2", "--force"], capsys)
+    assert code == 2 and "disk full" in err
+    monkeypatch.undo()
+    room = tmp_path / "captures" / "hall"
+    assert audio_io.file_sha256(session.resolve_sweep("s.wav", room, sha256=old_sha)) == old_sha
+    out.unlink()  # even with the named file gone
+    audio_io.sidecar_path(out).unlink()
+    found = session.resolve_sweep("s.wav", room, sha256=old_sha)
+    assert found == audio_io.replaced_path(out, old_sha)
+    assert audio_io.read_sweep(found).spec.duration_s == 1.0
+
+
 @pytest.mark.parametrize("argv, match", [
     (["--f2", "30000"], "exceeds Nyquist"),
     (["--f1", "5000", "--f2", "1000"], "must be below"),

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import shutil
 from pathlib import Path
 
 NAME = "sweep"
@@ -105,27 +106,41 @@ def _holds_this_sweep(out: str, sweep) -> bool:
 
 
 def _keep_the_old_one(out: str, *, force: bool) -> Path | None:
-    """Move an existing ``out`` pair aside as ``STEM.replaced-XXXXXXXX`` (``--force``), or
-    refuse; None when there is nothing to keep."""
+    """Keep an existing ``out`` pair as ``STEM.replaced-XXXXXXXX`` (``--force``), or refuse;
+    None when there is nothing to keep.
+
+    The old pair is hard-linked (copied where links are not possible) to its kept names, sidecar
+    first, before the new pair replaces it: at every moment one whole old pair can be found.
+    """
     from measure import audio_io
-    from measure.errors import ParameterError
+    from measure.errors import AudioFileError, MeasureError, ParameterError
 
     wav = Path(out)
     side = audio_io.sidecar_path(wav)
     if not wav.exists() and not side.exists():
         return None
-    if not force:
-        raise ParameterError(
-            f"{wav} already exists and holds another sweep, which earlier takes may name by its "
-            "SHA-256; give another name, or --force to replace it (the old one is kept beside "
-            "it)")
     if wav.is_dir() or side.is_dir():
         raise ParameterError(f"{wav} or {side} is a folder; give the sweep another name")
-    tag = audio_io.file_sha256(wav if wav.exists() else side)[:8]
-    kept = wav.with_name(f"{wav.stem}.replaced-{tag}.wav")
-    for old, new in ((side, audio_io.sidecar_path(kept)), (wav, kept)):
-        if old.exists():
-            os.replace(old, new)
+    audio_io.refuse_replacing_take(wav)
+    if not force:
+        try:
+            audio_io.read_sweep(wav)
+            what = "holds another sweep, which earlier takes may name by its SHA-256"
+        except MeasureError:
+            what = "is not a sweep this tool wrote (or not a whole one)"
+        raise ParameterError(f"{wav} already exists and {what}; give another name, or --force "
+                             "to replace it (the old one is kept beside it)")
+    kept = audio_io.replaced_path(wav, audio_io.file_sha256(wav if wav.exists() else side))
+    try:
+        for old, new in ((side, audio_io.sidecar_path(kept)), (wav, kept)):
+            if old.exists() and not new.exists():
+                try:
+                    os.link(old, new)
+                except OSError:  # no hard links here (some file systems): a copy
+                    shutil.copy2(old, new)
+    except OSError as err:
+        raise AudioFileError(f"cannot keep the old sweep as {kept} ({err.strerror or err}); "
+                             "check the folder, or give the new sweep another name") from err
     return kept
 
 
