@@ -214,23 +214,37 @@ def _remove_if_stale(path: Path) -> int:
 class FileSet:
     """Files staged as locked temporaries beside their targets and committed together.
 
-    Use through :func:`file_set`; :meth:`open` gives a binary file to write each target into.
-    All targets must be in one folder (the unit that a rename and a lock make atomic).
+    Use through :func:`file_set`; :meth:`open` gives a binary file to write each target into,
+    :meth:`remove` names a file that goes in the same commit (a stale sidecar, say). All targets
+    must be in one folder (the unit that a rename and a lock make atomic).
     """
 
     def __init__(self) -> None:
         self._staged: list[tuple[Path, Path, int, IO[bytes]]] = []  # (tmp, target, fd, fh)
+        self._removed: list[Path] = []
         self._folder: Path | None = None
+
+    def _in_folder(self, target: Path) -> None:
+        if self._folder is None:
+            self._folder = target.parent
+        elif os.path.abspath(target.parent) != os.path.abspath(self._folder):
+            raise ValueError(f"a file set lives in one folder: {target} is not in {self._folder}")
+
+    def remove(self, path: str | os.PathLike[str]) -> None:
+        """Remove ``path`` in the commit, after the renames (renamed to a temporary name, so
+        a run killed half-way has it removed by the roll-forward)."""
+        target = Path(path)
+        self._in_folder(target)
+        if target in self._removed or any(t == target for _, t, _, _ in self._staged):
+            raise ValueError(f"{target} is twice in one file set")
+        self._removed.append(target)
 
     def open(self, path: str | os.PathLike[str]) -> IO[bytes]:
         """A binary file to write ``path``'s new content into (a locked temporary beside it)."""
         target = Path(path)
         folder = target.parent
-        if self._folder is None:
-            self._folder = folder
-        elif os.path.abspath(folder) != os.path.abspath(self._folder):
-            raise ValueError(f"a file set lives in one folder: {target} is not in {self._folder}")
-        if any(t == target for _, t, _, _ in self._staged):
+        self._in_folder(target)
+        if target in self._removed or any(t == target for _, t, _, _ in self._staged):
             raise ValueError(f"{target} is twice in one file set")
         with _os_errors(target):
             folder.mkdir(parents=True, exist_ok=True)
@@ -320,12 +334,16 @@ class FileSet:
                 # A run that died mid-commit after this one began would, rolled forward later,
                 # put its files over part of this set: its commit is finished first.
                 _finish_dead_commits(folder, locked)
-                if len(self._staged) == 1:
-                    tmp, target = self._staged[0][:2]
-                    os.replace(tmp, target)
+                renames = [(t, g) for t, g, _, _ in self._staged]
+                going = [r for r in self._removed if r.is_file()]
+                graves = [r.with_name(f".{r.name}.{secrets.token_hex(8)}{TEMP_SUFFIX}")
+                          for r in going]
+                renames += list(zip(going, graves, strict=True))  # after the new files
+                if len(renames) == 1:
+                    os.replace(*renames[0])
                 else:
                     intent = folder / f".{first.name}.{secrets.token_hex(8)}{INTENT_SUFFIX}"
-                    doc = {"rename": [[t.name, g.name] for t, g, _, _ in self._staged]}
+                    doc = {"rename": [[a.name, b.name] for a, b in renames]}
                     fd = os.open(intent, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
                     try:
                         os.write(fd, json.dumps(doc).encode("utf-8"))
@@ -334,8 +352,8 @@ class FileSet:
                         os.close(fd)
                     _fsync_dir(folder)
                     try:
-                        for tmp, target, _, _ in self._staged:
-                            os.replace(tmp, target)
+                        for a, b in renames:
+                            os.replace(a, b)
                     except BaseException:
                         # Interrupted (SIGTERM, Ctrl-C) or failed half-way: finish what the
                         # intent promised before the temporaries are discarded.
@@ -343,6 +361,9 @@ class FileSet:
                         raise
                     _fsync_dir(folder)
                     os.unlink(intent)
+                for grave in graves:
+                    with contextlib.suppress(OSError):  # else it goes as a stale temporary
+                        os.unlink(grave)
             _fsync_dir(folder)
         targets = [g for _, g, _, _ in self._staged]
         self._release(unlink=False)
@@ -371,6 +392,7 @@ class FileSet:
                 with contextlib.suppress(OSError):
                     os.unlink(tmp)
         self._staged = []
+        self._removed = []
 
 
 @contextlib.contextmanager

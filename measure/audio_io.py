@@ -40,6 +40,7 @@ __all__ = [
     "sidecar_path",
     "replaced_path",
     "refuse_replacing_take",
+    "names_its_wav",
     "file_sha256",
     "atomic_writer",
     "read_sweep",
@@ -255,6 +256,9 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
                 subtype: Subtype = "FLOAT") -> Path:
     """Write (channels, samples) or (samples,) samples to a WAV file atomically.
 
+    A sidecar beside ``path`` that names the old file by hash (:func:`names_its_wav`) would
+    describe samples no longer there: it is removed in the same commit.
+
     Parameters
     ----------
     path : path-like
@@ -274,9 +278,23 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
     """
     target = Path(path)
     a, fmt = _audio_for_writing(target, x, fs)
-    with atomic_writer(target) as fh:
-        _write_samples(fh, a, fs, subtype, fmt)
+    refuse_replacing_take(target)
+    with file_set() as files:
+        _write_samples(files.open(target), a, fs, subtype, fmt)
+        if names_its_wav(sidecar_path(target)):
+            # The sidecar of the file this one replaces describes the old samples (a rendered
+            # model written over a measured response's name): it goes in the same commit.
+            files.remove(sidecar_path(target))
     return target
+
+
+def names_its_wav(side: Path) -> bool:
+    """True if ``side`` is a sidecar that names its WAV by hash (one of ours, now stale)."""
+    try:
+        with open(side, "rb") as fh:
+            return b'"audio_sha256"' in fh.read(1 << 16)
+    except OSError:
+        return False
 
 
 def _audio_for_writing(target: Path, x: np.ndarray, fs: int) -> tuple[np.ndarray, str]:

@@ -295,3 +295,32 @@ def test_commands_refuse_a_response_whose_sidecar_names_another_wav(tmp_path, ca
         err = capsys.readouterr().err
         assert err.count("\n") == 1 and "do not belong together" in err, err
     assert not (tmp_path / "r.html").exists()
+
+
+def test_a_wav_written_over_a_response_takes_its_stale_sidecar_with_it(tmp_path, capsys):
+    # A rendered model written over a measured response's name (render/auralize/predict --out):
+    # the old sidecar names the old WAV by hash and would make the new file unreadable as a
+    # pair; it goes in the same commit, and the new WAV reads as a response of its own.
+    from measure.cli import main
+    from measure.virtual import DEMO_ROOMS, room_ir
+
+    h = room_ir(DEMO_ROOMS[0], 48000, seed=1)
+    audio_io.write_pair(tmp_path / "ir.wav", 0.5 * h / np.max(np.abs(h)), 48000,
+                        {"format": "measure.ir/1"})
+    (tmp_path / "notes.json").write_text('{"mine": true}')  # a user's own JSON: left alone
+    audio_io.write_audio(tmp_path / "ir.wav", 0.25 * h / np.max(np.abs(h)), 48000)
+    audio_io.write_audio(tmp_path / "notes.wav", np.full(4000, 0.25), FS)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ir.wav", "notes.json", "notes.wav"]
+    assert main(["analyze", str(tmp_path / "ir.wav")]) == 0, capsys.readouterr().err
+
+
+def test_a_removal_killed_half_way_is_finished_by_the_next_run(tmp_path):
+    # The new WAV renamed, the stale sidecar not yet: the roll-forward removes it.
+    _write_run(str(tmp_path / "ir.wav"), 1)
+    (tmp_path / "new.wav").write_bytes(b"new samples")
+    os.replace(tmp_path / "new.wav", tmp_path / "ir.wav")
+    grave = ".ir.json.00000000000000dd.part"
+    (tmp_path / ".ir.wav.00000000000000bb.commit").write_text(json.dumps(
+        {"rename": [[".ir.wav.00000000000000cc.part", "ir.wav"], ["ir.json", grave]]}))
+    assert _files.clean_folder(tmp_path, force=True) == (1, 1)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["ir.wav"]

@@ -114,18 +114,20 @@ def channel_index(channel: int, n_channels: int, *, option: str, source: str) ->
 
 def refuse_overwriting_inputs(out: Any, *inputs: Any, option: str = "--out",
                               writes_sidecar: bool = False) -> None:
-    """Raise ParameterError when ``out`` (or, for a command that writes one, its JSON sidecar)
-    is one of ``inputs`` or one of their sidecars: no command writes over what it reads."""
+    """Raise ParameterError when ``out`` (or, for a command that writes one, its JSON sidecar;
+    or a stale sidecar that writing ``out`` removes) is one of ``inputs`` or one of their
+    sidecars: no command writes over what it reads."""
     from pathlib import Path
 
-    from measure.audio_io import sidecar_path
+    from measure.audio_io import names_its_wav, sidecar_path
     from measure.errors import ParameterError
 
     def files(p: Any) -> set[Path]:
         p = Path(p).resolve()
         return {p, sidecar_path(p).resolve()} if p.suffix.lower() != ".json" else {p}
 
-    written = files(out) if writes_sidecar else {Path(out).resolve()}
+    written = files(out) if writes_sidecar or names_its_wav(sidecar_path(out)) \
+        else {Path(out).resolve()}
     for inp in inputs:  # an input's sidecar counts where it exists
         if inp is not None and written & {f for f in files(inp)
                                           if f == Path(inp).resolve() or f.exists()}:
