@@ -182,3 +182,27 @@ def test_a_response_ending_right_after_its_direct_sound_is_refused():
     h[-200] = 5.0
     with pytest.raises(FitError, match=r"ends 4.2 ms after its direct sound.*at least 6.5 ms"):
         fit_model(h, FS)
+
+
+@pytest.mark.parametrize("fs", [4000, 6000, 768000])
+def test_a_rate_a_model_file_cannot_hold_is_refused_before_the_fit(fs):
+    # Issue "Never lose a take": fit wrote models at 4000, 6000 and 768000 Hz that the model
+    # file's loader then refused. The rate is checked against its range first.
+    with pytest.raises(ParameterError, match="8000 to 384000 Hz"):
+        fit_model(np.r_[np.zeros(100), 1.0, np.zeros(fs)], fs)
+
+
+def test_a_fitted_model_the_loader_would_refuse_is_a_fit_error():
+    # The guard on what fit_with_i3dl2 returns (and `measure fit` writes): a late decay of 75 s
+    # (beyond the format's 60 s) is a FitError naming the field, never a file that cannot be
+    # read back.
+    from measure.errors import FitError
+    from measure.model.fit import _check_loadable
+    from measure.model.modelfile import model_from_dict
+
+    res = fit_model(room_ir(DEMO_ROOMS[0], FS, seed=1), FS)
+    model_from_dict(res.model.to_dict())  # the real fit loads
+    late = res.model.late
+    too_long = res.model.replace(late=late.replace(t60_s=(75.0,) * len(late.t60_s)))
+    with pytest.raises(FitError, match="t60_s"):
+        _check_loadable(too_long)

@@ -380,15 +380,21 @@ def fit_model(h: Any, fs: int, *, order: int | None = None, n_echoes: int | None
     Raises
     ------
     ParameterError
-        For a malformed ``h`` or option.
+        For a malformed ``h`` or option, or a rate outside the model file's
+        :data:`~measure.model.modelfile.FS_RANGE_HZ`.
     FitError
         If no band has a measurable decay.
     """
+    from measure.model.modelfile import FS_RANGE_HZ
     from measure.parameters import analyze_ir
 
     t_start = time.perf_counter()
     h = check_signal(h, "impulse response", ndim=(1,))
     fs = check_fs(fs)
+    if not FS_RANGE_HZ[0] <= fs <= FS_RANGE_HZ[1]:
+        raise ParameterError(f"the response is at {fs} Hz and a model file holds rates from "
+                             f"{FS_RANGE_HZ[0]} to {FS_RANGE_HZ[1]} Hz; resample it into that "
+                             "range first")
     if order is not None and (isinstance(order, bool) or int(order) != order or order < 1):
         raise ParameterError(f"order={order!r} must be a whole number >= 1 (e.g. 4 or 8)")
     if n_echoes is not None and (isinstance(n_echoes, bool) or int(n_echoes) != n_echoes
@@ -550,6 +556,12 @@ def fit_with_i3dl2(h: Any, fs: int, *, order: int | None = None, n_echoes: int |
     result : FitResult
         Its model carries ``i3dl2``; report and figures as :func:`fit_model` gives them.
     i3dl2 : measure.model.i3dl2.I3dl2Set
+
+    Raises
+    ------
+    FitError
+        As :func:`fit_model`, and when the model would not load back from its file (a value
+        beyond the format's bounds).
     """
     from measure.model.i3dl2 import estimate_i3dl2
 
@@ -558,7 +570,22 @@ def fit_with_i3dl2(h: Any, fs: int, *, order: int | None = None, n_echoes: int |
     res = fit_model(h, fs, order=order, n_echoes=n_echoes, late_from=late_from, source=source)
     i3 = estimate_i3dl2(h, fs, res.model)
     model = res.model.replace(i3dl2=i3.to_dict())
+    _check_loadable(model)
     return FitResult(model, res.report, res.measured, res.modelled), i3
+
+
+def _check_loadable(model) -> None:
+    """Raise FitError when ``model`` would be refused by the model file's own loader (a decay
+    longer than the format holds, say): a fit never writes a file that cannot be read back."""
+    from measure.model.modelfile import model_from_dict
+
+    try:
+        model_from_dict(model.to_dict())
+    except ParameterError as err:
+        what = str(err).split(";")[0]
+        raise FitError(f"the model fitted to this response is outside what a model file holds "
+                       f"({what}); check that the file is a room's response, not a test signal "
+                       "(`measure analyze` still gives its figures)") from err
 
 
 def _band_costs(measured, modelled) -> np.ndarray:
