@@ -164,16 +164,42 @@ def read_audio(path: str | os.PathLike[str]) -> Audio:
 WORKING_MEMORY_FACTOR = 10
 
 
-def available_memory_bytes() -> int | None:
-    """Memory the system can give this process now (Linux ``MemAvailable``; else the physical
-    memory; None if unknown)."""
+def available_memory_bytes(*, meminfo: str = "/proc/meminfo",
+                           cgroup_root: str = "/sys/fs/cgroup") -> int | None:
+    """Memory the system can give this process now: Linux ``MemAvailable``, or less where the
+    process's control group (a container, a batch job's slice) has a memory limit; else the
+    physical memory; None if unknown."""
+    free = None
     with contextlib.suppress(OSError, ValueError):
-        with open("/proc/meminfo", encoding="ascii") as fh:
+        with open(meminfo, encoding="ascii") as fh:
             for line in fh:
                 if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    with contextlib.suppress(AttributeError, ValueError, OSError):
-        return int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+                    free = int(line.split()[1]) * 1024
+                    break
+    if free is None:
+        with contextlib.suppress(AttributeError, ValueError, OSError):
+            free = int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    in_group = _cgroup_free_bytes(Path(cgroup_root))
+    if in_group is not None:
+        free = in_group if free is None else min(free, in_group)
+    return free
+
+
+def _cgroup_free_bytes(root: Path) -> int | None:
+    """Limit minus usage of this process's memory control group (v2 ``memory.max`` and
+    ``memory.current``, or v1 ``memory.limit_in_bytes`` and ``memory.usage_in_bytes``, as the
+    group sees them at ``root``); None without a limit."""
+    for limit_name, usage_name in ((root / "memory.max", root / "memory.current"),
+                                   (root / "memory" / "memory.limit_in_bytes",
+                                    root / "memory" / "memory.usage_in_bytes")):
+        try:
+            limit = limit_name.read_text(encoding="ascii").strip()
+            usage = int(usage_name.read_text(encoding="ascii").strip())
+        except (OSError, ValueError):
+            continue
+        if limit == "max" or not limit.isdigit() or int(limit) >= 1 << 60:  # no limit
+            return None
+        return max(int(limit) - usage, 0)
     return None
 
 

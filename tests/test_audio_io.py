@@ -65,3 +65,28 @@ def test_a_file_too_long_for_the_machines_memory_is_refused_with_the_bound(tmp_p
         read_audio(p)
     monkeypatch.setattr(aio, "available_memory_bytes", lambda: 640_000)
     assert read_audio(p).x.shape == (1, 8000)
+
+
+@pytest.mark.parametrize("files, free", [
+    ({"memory.max": "1073741824\n", "memory.current": "536870912\n"}, 536870912),  # v2
+    ({"memory.max": "max\n", "memory.current": "536870912\n"}, None),  # v2, no limit
+    ({"memory/memory.limit_in_bytes": "1073741824\n",
+      "memory/memory.usage_in_bytes": "1000000000\n"}, 73741824),  # v1
+    ({"memory/memory.limit_in_bytes": "9223372036854771712\n",
+      "memory/memory.usage_in_bytes": "1\n"}, None),  # v1, "no limit" is the largest page
+    ({}, None),
+])
+def test_a_containers_memory_limit_bounds_what_is_free(tmp_path, files, free):
+    # Linux control groups (kernel documentation, cgroup-v2 "memory.max", "memory.current";
+    # cgroup-v1 memory "limit_in_bytes", "usage_in_bytes"): inside a container MemAvailable
+    # shows the host's memory, the group's limit is what the process can really have.
+    import measure.audio_io as aio
+
+    for name, text in files.items():
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_text(text)
+    meminfo = tmp_path / "meminfo"
+    meminfo.write_text("MemTotal:       16000000 kB\nMemAvailable:    8000000 kB\n")
+    host = 8000000 * 1024
+    got = aio.available_memory_bytes(meminfo=str(meminfo), cgroup_root=str(tmp_path))
+    assert got == (host if free is None else min(host, free))
