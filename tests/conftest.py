@@ -10,3 +10,14 @@ import pytest
 def rng() -> np.random.Generator:
     """A seeded generator, so every run of the suite sees the same noise."""
     return np.random.default_rng(20261202)
+
+
+def pytest_terminal_summary(terminalreporter) -> None:
+    """Print the counts the issue "Never lose a take" asks to see: the catalogue's bad inputs
+    refused as they should be and odd-but-valid ones accepted (passed tests only)."""
+    passed = [r.nodeid for r in terminalreporter.stats.get("passed", [])]
+    n_bad = sum("test_each_bad_input_is_one_error_line" in n for n in passed)
+    n_good = sum("test_each_odd_but_valid_input_succeeds" in n for n in passed)
+    if n_bad or n_good:
+        terminalreporter.write_line(f"catalogue: {n_bad} bad inputs refused as they should be, "
+                                    f"{n_good} odd but valid inputs accepted")
