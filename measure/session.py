@@ -15,6 +15,7 @@ from __future__ import annotations
 import errno
 import os
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -266,7 +267,8 @@ def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[s
 
 
 def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
-                  sha256: str | None = None) -> Path | None:
+                  sha256: str | None = None,
+                  hash_of: Callable[[Path], str] = file_sha256) -> Path | None:
     """The sweep file a take's sidecar names (``sweep_file``): as given, or beside the
     captures tree (``CAPTURES/../NAME``, ``CAPTURES/../sweeps/NAME``, ``CAPTURES/sweeps/NAME``);
     None when none exists.
@@ -274,6 +276,7 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
     With the take's ``sweep_sha256``: where the file of that name now holds another sweep
     (replaced with ``measure sweep --force``), the one kept beside it,
     ``STEM.replaced-XXXXXXXX.wav`` with the hash's first 8 digits, when it is there.
+    ``hash_of`` gives a file's SHA-256 (a caller that resolves many takes passes a memo).
     """
     if not named:
         return None
@@ -285,7 +288,7 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
         # interrupted before the new file was in place).
         for cand in places:
             for path in (cand, replaced_path(cand, sha256)):
-                if path.is_file() and file_sha256(path) == sha256:
+                if path.is_file() and hash_of(path) == sha256:
                     return path
     return next((cand for cand in places if cand.exists()), None)
 

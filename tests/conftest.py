@@ -15,9 +15,9 @@ def rng() -> np.random.Generator:
 def pytest_terminal_summary(terminalreporter) -> None:
     """Print the counts the issue "Never lose a take" asks to see: the catalogue's bad inputs
     refused as they should be and odd-but-valid ones accepted (passed tests only)."""
-    passed = [r.nodeid for r in terminalreporter.stats.get("passed", [])]
-    n_bad = sum("test_each_bad_input_is_one_error_line" in n for n in passed)
-    n_good = sum("test_each_odd_but_valid_input_succeeds" in n for n in passed)
+    passed = [r.nodeid.rsplit("/", 1)[-1] for r in terminalreporter.stats.get("passed", [])]
+    n_bad = sum(n.startswith("test_catalogue.py::test_each_bad_input_") for n in passed)
+    n_good = sum(n.startswith("test_catalogue.py::test_each_odd_but_valid_") for n in passed)
     if n_bad or n_good:
         terminalreporter.write_line(f"catalogue: {n_bad} bad inputs refused as they should be, "
                                     f"{n_good} odd but valid inputs accepted")
