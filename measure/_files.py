@@ -7,10 +7,13 @@ one folder is atomic, so each file is either its old self or its new self, never
 of more than one file, three more things make the *set* all-or-nothing:
 
 - **Intent.** Before the first rename, a small ``.NAME.XXXXXXXX.commit`` file lists every
-  (temporary, target) pair, fsynced. A run killed between two renames (SIGKILL, power loss)
-  leaves that intent behind with complete temporaries, and the next run in the folder finishes
-  the renames (rolls forward) before it does anything else. An intent that is not complete JSON
-  was never acted on: it is removed with its temporaries, and the old set stands.
+  (temporary, target, inode) and every file the set removes, fsynced. A run killed between two
+  renames (SIGKILL, power loss) leaves that intent behind with complete temporaries, and the
+  next run in the folder finishes the renames (rolls forward) before it does anything else. An
+  intent that is not complete JSON was never acted on: it is removed with its temporaries, and
+  the old set stands. The inodes (a rename keeps them) tell a set that can still be finished
+  from one whose temporaries were discarded or whose targets a newer run has written since:
+  that one is left alone, and no removal is replayed over a newer file.
 - **Folder lock.** The renames and the roll-forward happen under an exclusive ``flock`` of the
   folder itself, so two runs writing the same set commit one after the other: the files left are
   one run's set, never a mix.
@@ -35,7 +38,7 @@ import os
 import re
 import secrets
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import IO
 
@@ -154,29 +157,61 @@ def _finish_dead_commits(folder: Path, locked: bool) -> int:
     return sum(_roll_forward(folder, n) for n in names if locked or _old(folder / n))
 
 
+def _ino(path: Path) -> int | None:
+    try:
+        return os.stat(path).st_ino
+    except OSError:
+        return None
+
+
+def _names(entries: object) -> list[tuple[str, str, int]]:
+    # [[from, to, inode], ...] of plain names in the folder; anything else is not an intent
+    out = []
+    for a, b, ino in entries:  # type: ignore[attr-defined]
+        a, b = str(a), str(b)
+        if os.sep in a + b or "/" in a + b or not isinstance(ino, int):
+            raise ValueError("names and inodes only")
+        out.append((a, b, ino))
+    return out
+
+
 def _roll_forward(folder: Path, name: str) -> int:
+    """Finish the commit an intent describes, or void it; 1 if it was finished.
+
+    The intent lists each new file as (temporary, target, inode of the temporary) and each file
+    to remove as (name, grave, its inode). A rename keeps the inode, so each new file is either
+    still staged or already in place with that inode; if one is neither (its temporary was
+    discarded, or a newer run has written the target since), the set cannot be finished and
+    nothing is done: what was renamed stays, and a removal is never replayed over a newer file.
+    """
     intent = folder / name
     try:
-        pairs = json.loads(intent.read_text(encoding="utf-8"))["rename"]
-        pairs = [(str(a), str(b)) for a, b in pairs]
-        if any(os.sep in a or os.sep in b or "/" in a or "/" in b for a, b in pairs):
-            raise ValueError("names only")
+        doc = json.loads(intent.read_text(encoding="utf-8"))
+        renames, removes = _names(doc["rename"]), _names(doc.get("remove", []))
     except (OSError, ValueError, KeyError, TypeError):
         # Never completed, so nothing was renamed: the temporaries go as stale ones.
         with contextlib.suppress(OSError):
             os.unlink(intent)
         return 0
-    done = 1
-    for tmp, target in pairs:
-        try:
-            if (folder / tmp).exists():
-                os.replace(folder / tmp, folder / target)
-        except OSError:
-            # Cannot be finished: stop in order, so a sidecar (renamed last) is never newer
-            # than its WAV; what is left goes as stale temporaries and a mismatched pair is
-            # refused on reading by its hash.
-            done = 0
-            break
+    whole = all((folder / tmp).exists() or _ino(folder / target) == ino
+                for tmp, target, ino in renames)
+    done = int(whole)
+    if whole:
+        for tmp, target, _ in renames:
+            try:
+                if (folder / tmp).exists():
+                    os.replace(folder / tmp, folder / target)
+            except OSError:
+                # Cannot be finished: stop in order, so a sidecar (renamed last) is never
+                # newer than its WAV; a mismatched pair is refused on reading by its hash.
+                done = 0
+                break
+    if done:
+        for gone, grave, ino in removes:
+            if _ino(folder / gone) == ino:  # the very file the run meant, not a newer one
+                with contextlib.suppress(OSError):
+                    os.replace(folder / gone, folder / grave)
+                    os.unlink(folder / grave)
     _fsync_dir(folder)
     with contextlib.suppress(OSError):
         os.unlink(intent)
@@ -221,7 +256,8 @@ class FileSet:
 
     def __init__(self) -> None:
         self._staged: list[tuple[Path, Path, int, IO[bytes]]] = []  # (tmp, target, fd, fh)
-        self._removed: list[Path] = []
+        self._removed: list[tuple[Path, Callable[[Path], bool] | None]] = []
+        self._guards: list[Callable[[], None]] = []
         self._folder: Path | None = None
 
     def _in_folder(self, target: Path) -> None:
@@ -230,21 +266,32 @@ class FileSet:
         elif os.path.abspath(target.parent) != os.path.abspath(self._folder):
             raise ValueError(f"a file set lives in one folder: {target} is not in {self._folder}")
 
-    def remove(self, path: str | os.PathLike[str]) -> None:
-        """Remove ``path`` in the commit, after the renames (renamed to a temporary name, so
-        a run killed half-way has it removed by the roll-forward)."""
+    def _taken(self, target: Path) -> bool:
+        return any(r == target for r, _ in self._removed) or any(
+            t == target for _, t, _, _ in self._staged)
+
+    def remove(self, path: str | os.PathLike[str], *,
+               when: Callable[[Path], bool] | None = None) -> None:
+        """Remove ``path`` in the commit, after the renames, if it is a file then (and
+        ``when(path)`` is true: decided under the folder lock, so on what is there at the
+        moment of the commit, not before another run's)."""
         target = Path(path)
         self._in_folder(target)
-        if target in self._removed or any(t == target for _, t, _, _ in self._staged):
+        if self._taken(target):
             raise ValueError(f"{target} is twice in one file set")
-        self._removed.append(target)
+        self._removed.append((target, when))
+
+    def guard(self, check: Callable[[], None]) -> None:
+        """Run ``check`` under the folder lock just before the renames; an exception from it
+        (a take found where this set would go, say) leaves the targets as they are."""
+        self._guards.append(check)
 
     def open(self, path: str | os.PathLike[str]) -> IO[bytes]:
         """A binary file to write ``path``'s new content into (a locked temporary beside it)."""
         target = Path(path)
         folder = target.parent
         self._in_folder(target)
-        if target in self._removed or any(t == target for _, t, _, _ in self._staged):
+        if self._taken(target):
             raise ValueError(f"{target} is twice in one file set")
         with _os_errors(target):
             folder.mkdir(parents=True, exist_ok=True)
@@ -334,40 +381,53 @@ class FileSet:
                 # A run that died mid-commit after this one began would, rolled forward later,
                 # put its files over part of this set: its commit is finished first.
                 _finish_dead_commits(folder, locked)
+                for check in self._guards:
+                    check()
                 renames = [(t, g) for t, g, _, _ in self._staged]
-                going = [r for r in self._removed if r.is_file()]
+                going = [r for r, when in self._removed
+                         if r.is_file() and (when is None or when(r))]
                 graves = [r.with_name(f".{r.name}.{secrets.token_hex(8)}{TEMP_SUFFIX}")
                           for r in going]
-                renames += list(zip(going, graves, strict=True))  # after the new files
-                if len(renames) == 1:
+                if len(renames) == 1 and not going:
                     os.replace(*renames[0])
                 else:
-                    intent = folder / f".{first.name}.{secrets.token_hex(8)}{INTENT_SUFFIX}"
-                    doc = {"rename": [[a.name, b.name] for a, b in renames]}
-                    fd = os.open(intent, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
-                    try:
-                        os.write(fd, json.dumps(doc).encode("utf-8"))
-                        os.fsync(fd)
-                    finally:
-                        os.close(fd)
-                    _fsync_dir(folder)
-                    try:
-                        for a, b in renames:
-                            os.replace(a, b)
-                    except BaseException:
-                        # Interrupted (SIGTERM, Ctrl-C) or failed half-way: finish what the
-                        # intent promised before the temporaries are discarded.
-                        _roll_forward(folder, intent.name)
-                        raise
-                    _fsync_dir(folder)
-                    os.unlink(intent)
-                for grave in graves:
-                    with contextlib.suppress(OSError):  # else it goes as a stale temporary
-                        os.unlink(grave)
+                    self._commit_with_intent(folder, renames, list(zip(going, graves,
+                                                                       strict=True)))
             _fsync_dir(folder)
         targets = [g for _, g, _, _ in self._staged]
         self._release(unlink=False)
         return targets
+
+    @staticmethod
+    def _commit_with_intent(folder: Path, renames: list[tuple[Path, Path]],
+                            removes: list[tuple[Path, Path]]) -> None:
+        # The intent first (fsynced), then the renames, then the removals. Interrupted at any
+        # point (SIGTERM, Ctrl-C) or failed half-way, the intent is acted on at once: finished
+        # if it was written whole, void if not, before the temporaries are discarded.
+        first = renames[0][1]
+        intent = folder / f".{first.name}.{secrets.token_hex(8)}{INTENT_SUFFIX}"
+        doc = {"rename": [[a.name, b.name, os.stat(a).st_ino] for a, b in renames],
+               "remove": [[a.name, b.name, os.stat(a).st_ino] for a, b in removes]}
+        try:
+            fd = os.open(intent, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+            try:
+                os.write(fd, json.dumps(doc).encode("utf-8"))
+                os.fsync(fd)
+            finally:
+                os.close(fd)
+            _fsync_dir(folder)
+            for a, b in renames:
+                os.replace(a, b)
+            for a, b in removes:
+                os.replace(a, b)
+                with contextlib.suppress(OSError):  # else it goes as a stale temporary
+                    os.unlink(b)
+        except BaseException:
+            if intent.exists():
+                _roll_forward(folder, intent.name)
+            raise
+        _fsync_dir(folder)
+        os.unlink(intent)
 
     def discard(self) -> None:
         """Remove every temporary still staged (the targets are left as they were)."""
@@ -393,6 +453,7 @@ class FileSet:
                     os.unlink(tmp)
         self._staged = []
         self._removed = []
+        self._guards = []
 
 
 @contextlib.contextmanager

@@ -13,6 +13,7 @@ import hashlib
 import json
 import math
 import os
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
@@ -260,22 +261,36 @@ def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
     target = Path(path)
     refuse_replacing_take(target)
     with file_set() as files:
+        files.guard(lambda: refuse_replacing_take(target))  # again, under the folder lock
         yield files.open(target)
 
 
 def refuse_replacing_take(target: Path) -> None:
     """Takes are never overwritten: refuse to write a take's WAV or its sidecar."""
     side = target if target.suffix.lower() == ".json" else sidecar_path(target)
-    if not (target.exists() and side.is_file()):
+    if not target.exists():
         return
-    try:
-        with open(side, "rb") as fh:
-            head = fh.read(4096).decode("utf-8", "replace")
-    except OSError:
-        return
-    if '"format": "measure.take/' in head:
+    fmt = (_our_sidecar(side) or {}).get("format")
+    if isinstance(fmt, str) and fmt.startswith("measure.take/"):
         raise AudioFileError(
             f"{target} is a take, and takes are never overwritten; write somewhere else")
+
+
+def _our_sidecar(side: Path) -> dict[str, Any] | None:
+    """The JSON object in ``side``, or None when it is not a file holding one (at most 16 MiB
+    is read: sidecars are small)."""
+    try:
+        with open(side, "rb") as fh:
+            doc = json.loads(fh.read(1 << 24))
+    except (OSError, ValueError):
+        return None
+    return doc if isinstance(doc, dict) else None
+
+
+def names_its_wav(side: Path) -> bool:
+    """True if ``side`` is a sidecar that names its WAV by SHA-256 (``audio_sha256``)."""
+    sha = (_our_sidecar(side) or {}).get("audio_sha256")
+    return isinstance(sha, str) and re.fullmatch(r"[0-9a-f]{64}", sha) is not None
 
 
 def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
@@ -304,23 +319,15 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
     """
     target = Path(path)
     a, fmt = _audio_for_writing(target, x, fs)
-    refuse_replacing_take(target)
+    refuse_replacing_take(target)  # before the work; again under the lock
     with file_set() as files:
+        files.guard(lambda: refuse_replacing_take(target))
         _write_samples(files.open(target), a, fs, subtype, fmt)
-        if names_its_wav(sidecar_path(target)):
-            # The sidecar of the file this one replaces describes the old samples (a rendered
-            # model written over a measured response's name): it goes in the same commit.
-            files.remove(sidecar_path(target))
+        # The sidecar of the file this one replaces describes the old samples (a rendered
+        # model written over a measured response's name): it goes in the same commit, decided
+        # on what is there at the commit.
+        files.remove(sidecar_path(target), when=names_its_wav)
     return target
-
-
-def names_its_wav(side: Path) -> bool:
-    """True if ``side`` is a sidecar that names its WAV by hash (one of ours, now stale)."""
-    try:
-        with open(side, "rb") as fh:
-            return b'"audio_sha256"' in fh.read(1 << 16)
-    except OSError:
-        return False
 
 
 def _audio_for_writing(target: Path, x: np.ndarray, fs: int) -> tuple[np.ndarray, str]:
@@ -377,7 +384,8 @@ def write_pairs(pairs, *, subtype: Subtype = "FLOAT") -> list[tuple[Path, Path]]
     with file_set() as files:
         for path, x, fs, sidecar in pairs:
             target = Path(path)
-            refuse_replacing_take(target)
+            refuse_replacing_take(target)  # before the work; again under the lock
+            files.guard(lambda target=target: refuse_replacing_take(target))
             sha = stage_audio(files, target, x, fs, subtype=subtype)
             side = sidecar_path(target)
             files.open(side).write((dumps({**sidecar, "audio_sha256": sha}) + "\n")

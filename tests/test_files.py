@@ -123,6 +123,18 @@ def test_the_clean_up_removes_dead_runs_temporaries_but_not_live_ones(tmp_path):
     assert _debris(tmp_path) == []  # the live run removed its own on the way out
 
 
+def _intent(folder: Path, name: str, renames, removes=()) -> Path:
+    """An intent as a commit writes it: each (from, to) with the inode of the new file (still
+    staged under ``from``, or in place under ``to``) or of the file to remove."""
+    def ino(a: str, b: str) -> int:
+        return (folder / a if (folder / a).exists() else folder / b).stat().st_ino
+
+    path = folder / name
+    path.write_text(json.dumps({"rename": [[a, b, ino(a, b)] for a, b in renames],
+                                "remove": [[a, b, ino(a, b)] for a, b in removes]}))
+    return path
+
+
 def test_a_set_killed_between_its_renames_is_finished_by_the_next_run(tmp_path):
     # What a SIGKILL after the first rename leaves: the new WAV in place, the new sidecar still
     # a temporary, and the intent. The next run in the folder rolls the set forward.
@@ -131,8 +143,8 @@ def test_a_set_killed_between_its_renames_is_finished_by_the_next_run(tmp_path):
     tmp_json = ".a.json.00000000000000aa.part"
     os.replace(tmp_path / "new.json", tmp_path / tmp_json)
     os.replace(tmp_path / "new.wav", tmp_path / "a.wav")  # the first rename happened
-    (tmp_path / ".a.wav.00000000000000bb.commit").write_text(json.dumps(
-        {"rename": [[".a.wav.00000000000000cc.part", "a.wav"], [tmp_json, "a.json"]]}))
+    _intent(tmp_path, ".a.wav.00000000000000bb.commit",
+            [(".a.wav.00000000000000cc.part", "a.wav"), (tmp_json, "a.json")])
     with pytest.raises(AssertionError):
         _consistent_run(tmp_path / "a.wav")  # torn until the next run
     assert _files.clean_folder(tmp_path, force=True) == (1, 0)
@@ -226,8 +238,7 @@ def test_without_flock_only_old_temporaries_and_intents_are_taken_as_dead(tmp_pa
     young.write_bytes(b"another run, writing now")
     old.write_bytes(b"left by a run killed yesterday")
     _age(old, 2 * 3600)
-    intent = tmp_path / ".c.wav.00000000000000cc.commit"
-    intent.write_text(json.dumps({"rename": [[young.name, "c.wav"]]}))
+    intent = _intent(tmp_path, ".c.wav.00000000000000cc.commit", [(young.name, "c.wav")])
     assert _files.clean_folder(tmp_path, force=True) == (0, 1)
     assert young.exists() and intent.exists() and not old.exists()
     assert _consistent_run(tmp_path / "c.wav") == 1
@@ -246,8 +257,8 @@ def test_a_dead_runs_intent_is_finished_before_a_new_set_is_committed(tmp_path):
     tmp_json = ".a.json.00000000000000aa.part"
     os.replace(tmp_path / "dead.json", tmp_path / tmp_json)
     os.replace(tmp_path / "dead.wav", tmp_path / "a.wav")  # the dead run's first rename
-    (tmp_path / ".a.wav.00000000000000bb.commit").write_text(json.dumps(
-        {"rename": [[".a.wav.00000000000000cc.part", "a.wav"], [tmp_json, "a.json"]]}))
+    _intent(tmp_path, ".a.wav.00000000000000bb.commit",
+            [(".a.wav.00000000000000cc.part", "a.wav"), (tmp_json, "a.json")])
     _files._cleaned.add(str(tmp_path.resolve()))  # this run cleaned before the intent appeared
     _write_run(str(tmp_path / "a.wav"), 2)
     assert _files.clean_folder(tmp_path, force=True) == (0, 0)  # nothing left to roll forward
@@ -261,9 +272,9 @@ def test_a_roll_forward_that_cannot_finish_stops_in_order(tmp_path):
     os.replace(tmp_path / "new.wav", tmp_path / ".a.wav.00000000000000cc.part")
     os.replace(tmp_path / "new.json", tmp_path / ".a.json.00000000000000aa.part")
     (tmp_path / "a.wav").mkdir()
-    (tmp_path / ".a.wav.00000000000000bb.commit").write_text(json.dumps(
-        {"rename": [[".a.wav.00000000000000cc.part", "a.wav"],
-                    [".a.json.00000000000000aa.part", "a.json"]]}))
+    _intent(tmp_path, ".a.wav.00000000000000bb.commit",
+            [(".a.wav.00000000000000cc.part", "a.wav"),
+             (".a.json.00000000000000aa.part", "a.json")])
     assert _files.clean_folder(tmp_path, force=True) == (0, 2)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a.wav"]
 
@@ -320,7 +331,85 @@ def test_a_removal_killed_half_way_is_finished_by_the_next_run(tmp_path):
     (tmp_path / "new.wav").write_bytes(b"new samples")
     os.replace(tmp_path / "new.wav", tmp_path / "ir.wav")
     grave = ".ir.json.00000000000000dd.part"
-    (tmp_path / ".ir.wav.00000000000000bb.commit").write_text(json.dumps(
-        {"rename": [[".ir.wav.00000000000000cc.part", "ir.wav"], ["ir.json", grave]]}))
-    assert _files.clean_folder(tmp_path, force=True) == (1, 1)
+    _intent(tmp_path, ".ir.wav.00000000000000bb.commit",
+            [(".ir.wav.00000000000000cc.part", "ir.wav")], [("ir.json", grave)])
+    assert _files.clean_folder(tmp_path, force=True) == (1, 0)  # removed by the roll-forward
     assert sorted(p.name for p in tmp_path.iterdir()) == ["ir.wav"]
+
+
+def test_an_interrupt_before_the_first_rename_keeps_the_old_pair_whole(tmp_path, monkeypatch):
+    # Ctrl-C or SIGTERM after the intent is written and before any rename: the temporaries are
+    # discarded, and the intent left must not remove the old sidecar later (the new WAV whose
+    # set it belonged to never arrived).
+    _write_run(str(tmp_path / "ir.wav"), 1)
+    before = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    real_replace = os.replace
+
+    def interrupted(src, dst):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(os, "replace", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        audio_io.write_audio(tmp_path / "ir.wav", np.full(4000, 0.25), FS)
+    monkeypatch.setattr(os, "replace", real_replace)
+    _files.clean_folder(tmp_path, force=True)
+    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == before
+
+
+def test_a_dead_runs_removal_is_never_replayed_over_a_newer_pair(tmp_path, monkeypatch):
+    # Without locks an hour-old intent is finished by whichever run comes next; a run killed
+    # after renaming its WAV and before removing the stale sidecar, then a newer whole pair
+    # written over both: the replay finds the WAV is no longer the dead run's and does nothing.
+    monkeypatch.setattr(_files.fcntl, "flock", lambda fd, op: (_ for _ in ()).throw(
+        OSError(95, "Operation not supported")))
+    _write_run(str(tmp_path / "x.wav"), 1)
+    (tmp_path / "dead.wav").write_bytes(b"the dead run's WAV")
+    os.replace(tmp_path / "dead.wav", tmp_path / "x.wav")
+    intent = _intent(tmp_path, ".x.wav.00000000000000bb.commit",
+                     [(".x.wav.00000000000000cc.part", "x.wav")],
+                     [("x.json", ".x.json.00000000000000dd.part")])
+    _age(intent, 2 * 3600)
+    _write_run(str(tmp_path / "x.wav"), 2)  # young enough not to be taken as dead: left
+    _write_run(str(tmp_path / "x.wav"), 3)
+    assert _files.clean_folder(tmp_path, force=True) == (0, 0)
+    assert _consistent_run(tmp_path / "x.wav") == 3 and _debris(tmp_path) == []
+
+
+def test_the_stale_sidecar_is_decided_at_the_commit_not_before(tmp_path, monkeypatch):
+    # Two runs: A writes a WAV alone, B commits a whole pair at that name while A is still
+    # writing. A's commit must take B's sidecar (now naming a WAV that A replaces) with it,
+    # never leave A's WAV beside B's sidecar.
+    real, b_done = _files.FileSet.commit, []
+
+    def b_commits_just_before(self):
+        if not b_done:  # B's own commit goes through the real one
+            b_done.append(True)
+            _write_run(str(tmp_path / "x.wav"), 2)
+        return real(self)
+
+    monkeypatch.setattr(_files.FileSet, "commit", b_commits_just_before)
+    audio_io.write_audio(tmp_path / "x.wav", np.full(4000, 0.25), FS)
+    monkeypatch.setattr(_files.FileSet, "commit", real)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["x.wav"]
+    assert np.all(audio_io.read_audio(tmp_path / "x.wav").x == np.float32(0.25))
+
+
+def test_a_take_that_appears_while_a_file_is_written_at_its_name_is_not_replaced(tmp_path,
+                                                                                 monkeypatch):
+    from measure import session
+
+    real, made = _files.FileSet.commit, []
+
+    def take_recorded_just_before(self):
+        if not made:
+            made.append(None)  # the take's own sidecar commit goes through the real one
+            made[0] = session.save_take(tmp_path, "hall", "S1", np.zeros((1, 100)), FS, {})
+        return real(self)
+
+    monkeypatch.setattr(_files.FileSet, "commit", take_recorded_just_before)
+    target = tmp_path / "hall" / "S1-take1.wav"
+    with pytest.raises(AudioFileError, match="never overwritten"):
+        audio_io.write_audio(target, np.full(4000, 0.25), FS)
+    monkeypatch.setattr(_files.FileSet, "commit", real)
+    assert made[0].wav == target and audio_io.read_audio(target).x.shape == (1, 100)
+    assert _debris(target.parent) == []
