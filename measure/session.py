@@ -277,20 +277,36 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
     (replaced with ``measure sweep --force``), the one kept beside it,
     ``STEM.replaced-XXXXXXXX.wav`` with the hash's first 8 digits, when it is there.
     ``hash_of`` gives a file's SHA-256 (a caller that resolves many takes passes a memo).
+
+    Raises
+    ------
+    AudioFileError
+        With a ``sha256`` that is not one, or when files of that name exist but none (nor a
+        kept copy) is that sweep: a take is never recovered with another sweep.
     """
     if not named:
         return None
     p, folder = Path(named), Path(room_folder)
     places = (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
               folder.parent / "sweeps" / p.name)
-    if isinstance(sha256, str) and len(sha256) >= 8:
-        # The very sweep first, under its own name or kept aside (also when a replacement was
-        # interrupted before the new file was in place).
-        for cand in places:
-            for path in (cand, replaced_path(cand, sha256)):
-                if path.is_file() and hash_of(path) == sha256:
-                    return path
-    return next((cand for cand in places if cand.exists()), None)
+    found = next((cand for cand in places if cand.exists()), None)
+    if sha256 is None:
+        return found
+    if not (isinstance(sha256, str) and re.fullmatch(r"[0-9a-f]{64}", sha256)):
+        raise AudioFileError(f"the take's sweep_sha256 {sha256!r} is not a SHA-256 (64 hex "
+                             "digits); restore the take's sidecar from a backup")
+    # The very sweep, under its own name or kept aside (also when a replacement was
+    # interrupted before the new file was in place); never another sweep of that name.
+    for cand in places:
+        for path in (cand, replaced_path(cand, sha256)):
+            if path.is_file() and hash_of(path) == sha256:
+                return path
+    if found is None:
+        return None
+    raise AudioFileError(
+        f"{found} is not the sweep the take was recorded with (its SHA-256 differs from the "
+        f"take's sweep_sha256 {sha256[:8]}...) and no kept copy "
+        f"{replaced_path(found, sha256).name} is beside it; restore that sweep file")
 
 
 def recover_take(audio: Any, sidecar: dict[str, Any], sweep: Any, *, name: str = "the take"):

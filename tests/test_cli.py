@@ -214,6 +214,51 @@ def test_an_interrupted_sweep_force_leaves_the_old_sweep_findable(tmp_path, caps
     assert audio_io.read_sweep(found).spec.duration_s == 1.0
 
 
+@pytest.mark.parametrize("links", [True, False])
+def test_sweep_force_makes_again_a_kept_copy_cut_short(tmp_path, capsys, monkeypatch, links):
+    # A --force killed while copying (a file system without hard links) left a truncated kept
+    # copy: the next --force must not trust the name and replace the only whole old sweep.
+    import os
+
+    from measure import audio_io
+
+    out = tmp_path / "s.wav"
+    assert run(["sweep", str(out), "--duration", "1", "--gap", "0.5"], capsys)[0] == 0
+    old = {p.name: p.read_bytes() for p in tmp_path.iterdir()}
+    kept = audio_io.replaced_path(out, audio_io.file_sha256(out))
+    kept.write_bytes(old["s.wav"][:100])
+    if not links:
+        def no_links(src, dst):
+            raise OSError(1, "Operation not permitted")
+        monkeypatch.setattr(os, "link", no_links)
+    code, _, err = run(["sweep", str(out), "--duration", "2", "--force"], capsys)
+    assert code == 0, err
+    assert kept.read_bytes() == old["s.wav"]
+    assert audio_io.sidecar_path(kept).read_bytes() == old["s.json"]
+    assert audio_io.read_sweep(kept).spec.duration_s == 1.0
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+def test_a_take_is_never_recovered_with_another_sweep_of_its_sweeps_name(tmp_path, capsys):
+    # The sweep replaced behind the tool's back (copied over, no kept copy): the take's
+    # sweep_sha256 no longer matches, which is one error line, not a silent wrong recovery.
+    from measure import audio_io, session
+    from measure.errors import AudioFileError
+
+    out = tmp_path / "sweeps" / "s.wav"
+    assert run(["sweep", str(out), "--duration", "1", "--gap", "0.5"], capsys)[0] == 0
+    old_sha = audio_io.file_sha256(out)
+    assert run(["sweep", str(tmp_path / "t.wav"), "--duration", "2"], capsys)[0] == 0
+    for name in ("t.wav", "t.json"):
+        (tmp_path / name).replace(out.with_name("s" + name[1:]))
+    room = tmp_path / "captures" / "hall"
+    with pytest.raises(AudioFileError, match="not the sweep the take was recorded with"):
+        session.resolve_sweep("s.wav", room, sha256=old_sha)
+    with pytest.raises(AudioFileError, match="not a SHA-256"):
+        session.resolve_sweep("s.wav", room, sha256="../../etc")
+    assert session.resolve_sweep("missing.wav", room, sha256=old_sha) is None
+
+
 @pytest.mark.parametrize("argv, match", [
     (["--f2", "30000"], "exceeds Nyquist"),
     (["--f1", "5000", "--f2", "1000"], "must be below"),

@@ -133,15 +133,33 @@ def _keep_the_old_one(out: str, *, force: bool) -> Path | None:
     kept = audio_io.replaced_path(wav, audio_io.file_sha256(wav if wav.exists() else side))
     try:
         for old, new in ((side, audio_io.sidecar_path(kept)), (wav, kept)):
-            if old.exists() and not new.exists():
-                try:
-                    os.link(old, new)
-                except OSError:  # no hard links here (some file systems): a copy
-                    shutil.copy2(old, new)
+            if old.exists():
+                _keep_as(old, new)
     except OSError as err:
+        if isinstance(err, AudioFileError):
+            raise
         raise AudioFileError(f"cannot keep the old sweep as {kept} ({err.strerror or err}); "
                              "check the folder, or give the new sweep another name") from err
     return kept
+
+
+def _keep_as(old: Path, new: Path) -> None:
+    """Make ``new`` hold exactly ``old``'s bytes: a hard link, or where the file system has
+    none a copy renamed into place whole. A ``new`` already there is trusted only when its
+    bytes are ``old``'s (a copy cut short by a killed run is made again)."""
+    from measure import audio_io
+    from measure._files import file_set
+
+    try:
+        os.link(old, new)
+        return
+    except FileExistsError:
+        if audio_io.file_sha256(new) == audio_io.file_sha256(old):
+            return  # kept already (an earlier --force, or a run alongside this one)
+    except OSError:
+        pass  # no hard links on this file system
+    with file_set() as files, open(old, "rb") as src:
+        shutil.copyfileobj(src, files.open(new))
 
 
 def default_fade_in_s(f1_hz: float, f2_hz: float, duration_s: float) -> float:
