@@ -166,10 +166,11 @@ WORKING_MEMORY_FACTOR = 10
 
 
 def available_memory_bytes(*, meminfo: str = "/proc/meminfo",
-                           cgroup_root: str = "/sys/fs/cgroup") -> int | None:
+                           cgroup_root: str = "/sys/fs/cgroup",
+                           proc_cgroup: str = "/proc/self/cgroup") -> int | None:
     """Memory the system can give this process now: Linux ``MemAvailable``, or less where the
-    process's control group (a container, a batch job's slice) has a memory limit; else the
-    physical memory; None if unknown."""
+    process's control group or one above it (a container, a batch job's slice) has a memory
+    limit; else the physical memory; None if unknown."""
     free = None
     with contextlib.suppress(OSError, ValueError):
         with open(meminfo, encoding="ascii") as fh:
@@ -180,28 +181,69 @@ def available_memory_bytes(*, meminfo: str = "/proc/meminfo",
     if free is None:
         with contextlib.suppress(AttributeError, ValueError, OSError):
             free = int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
-    in_group = _cgroup_free_bytes(Path(cgroup_root))
+    in_group = _cgroup_free_bytes(Path(cgroup_root), Path(proc_cgroup))
     if in_group is not None:
         free = in_group if free is None else min(free, in_group)
     return free
 
 
-def _cgroup_free_bytes(root: Path) -> int | None:
-    """Limit minus usage of this process's memory control group (v2 ``memory.max`` and
-    ``memory.current``, or v1 ``memory.limit_in_bytes`` and ``memory.usage_in_bytes``, as the
-    group sees them at ``root``); None without a limit."""
-    for limit_name, usage_name in ((root / "memory.max", root / "memory.current"),
-                                   (root / "memory" / "memory.limit_in_bytes",
-                                    root / "memory" / "memory.usage_in_bytes")):
-        try:
-            limit = limit_name.read_text(encoding="ascii").strip()
-            usage = int(usage_name.read_text(encoding="ascii").strip())
-        except (OSError, ValueError):
+#: (limit, usage, the memory.stat line of reclaimable page cache) per cgroup version
+_CGROUP_FILES = {2: ("memory.max", "memory.current", "inactive_file"),
+                 1: ("memory.limit_in_bytes", "memory.usage_in_bytes", "total_inactive_file")}
+
+
+def _cgroup_free_bytes(root: Path, proc_cgroup: Path) -> int | None:
+    """The least room left under any memory limit from this process's control group up to the
+    root (limit − usage + inactive page cache, which the kernel reclaims before it fails an
+    allocation; Linux kernel documentation, admin-guide/cgroup-v2 "memory.max", "memory.stat",
+    and cgroup-v1/memory "limit_in_bytes"); None without a limit or without cgroups."""
+    try:
+        lines = proc_cgroup.read_text(encoding="ascii").splitlines()
+    except OSError:
+        lines = []
+    groups = []  # (version, folder of the group's files)
+    for line in lines:
+        parts = line.split(":", 2)
+        if len(parts) != 3:
             continue
-        if limit == "max" or not limit.isdigit() or int(limit) >= 1 << 60:  # no limit
-            return None
-        return max(int(limit) - usage, 0)
-    return None
+        if parts[0] == "0" and parts[1] == "":
+            groups.append((2, root, parts[2]))
+        elif "memory" in parts[1].split(","):
+            groups.append((1, root / "memory", parts[2]))
+    if not groups:  # no /proc/self/cgroup: the namespace's own root, either version
+        groups = [(2, root, "/"), (1, root / "memory", "/")]
+    best = None
+    for version, base, rel in groups:
+        limit_name, usage_name, cache_key = _CGROUP_FILES[version]
+        folder = base / rel.lstrip("/")
+        if not folder.is_dir():  # a path outside this namespace's view: its root
+            folder = base
+        while True:
+            room = _room_in_group(folder, limit_name, usage_name, cache_key)
+            if room is not None:
+                best = room if best is None else min(best, room)
+            if folder == base or base not in folder.parents:
+                break
+            folder = folder.parent
+    return best
+
+
+def _room_in_group(folder: Path, limit_name: str, usage_name: str, cache_key: str) -> int | None:
+    try:
+        limit = (folder / limit_name).read_text(encoding="ascii").strip()
+        usage = int((folder / usage_name).read_text(encoding="ascii").strip())
+    except (OSError, ValueError):
+        return None
+    if not limit.isdigit() or int(limit) >= 1 << 60:  # "max", or v1's "no limit"
+        return None
+    cache = 0
+    with contextlib.suppress(OSError, ValueError):
+        for line in (folder / "memory.stat").read_text(encoding="ascii").splitlines():
+            key, _, value = line.partition(" ")
+            if key == cache_key:
+                cache = int(value)
+                break
+    return max(int(limit) - usage + cache, 0)
 
 
 def _too_big(frames: int, channels: int, fs: int) -> str | None:

@@ -67,26 +67,49 @@ def test_a_file_too_long_for_the_machines_memory_is_refused_with_the_bound(tmp_p
     assert read_audio(p).x.shape == (1, 8000)
 
 
-@pytest.mark.parametrize("files, free", [
-    ({"memory.max": "1073741824\n", "memory.current": "536870912\n"}, 536870912),  # v2
-    ({"memory.max": "max\n", "memory.current": "536870912\n"}, None),  # v2, no limit
-    ({"memory/memory.limit_in_bytes": "1073741824\n",
-      "memory/memory.usage_in_bytes": "1000000000\n"}, 73741824),  # v1
-    ({"memory/memory.limit_in_bytes": "9223372036854771712\n",
-      "memory/memory.usage_in_bytes": "1\n"}, None),  # v1, "no limit" is the largest page
-    ({}, None),
+GIB = 1 << 30
+
+
+@pytest.mark.parametrize("proc, files, free", [
+    # v2, the limit on the process's own group; 0.4 GiB of it reclaimable page cache
+    ("0::/job/step\n", {"job/step/memory.max": f"{GIB}\n",
+                        "job/step/memory.current": f"{GIB // 2 + (400 << 20)}\n",
+                        "job/step/memory.stat": f"anon 1\ninactive_file {400 << 20}\n"},
+     GIB // 2),
+    # v2, no limit on the group, a tighter one on its parent (a batch job's slice)
+    ("0::/job/step\n", {"job/step/memory.max": "max\n", "job/step/memory.current": "5\n",
+                        "job/memory.max": f"{2 * GIB}\n", "job/memory.current": f"{GIB}\n"},
+     GIB),
+    ("0::/\n", {"memory.max": "max\n", "memory.current": "536870912\n"}, None),
+    # v1, as this machine has it: memory:/group, the group's files under memory/group
+    ("4:memory:/grp\n0::/\n", {"memory/grp/memory.limit_in_bytes": f"{GIB}\n",
+                               "memory/grp/memory.usage_in_bytes": f"{GIB - (64 << 20)}\n",
+                               "memory/grp/memory.stat": "total_inactive_file 0\n"},
+     64 << 20),
+    # v1, "no limit" is the largest multiple of the page size
+    ("4:memory:/grp\n", {"memory/grp/memory.limit_in_bytes": "9223372036854771712\n",
+                         "memory/grp/memory.usage_in_bytes": "1\n"}, None),
+    # the group's path is outside this namespace's view: the namespace's root counts
+    ("0::/elsewhere\n", {"memory.max": f"{GIB}\n", "memory.current": "0\n"}, GIB),
+    ("", {}, None),
 ])
-def test_a_containers_memory_limit_bounds_what_is_free(tmp_path, files, free):
-    # Linux control groups (kernel documentation, cgroup-v2 "memory.max", "memory.current";
-    # cgroup-v1 memory "limit_in_bytes", "usage_in_bytes"): inside a container MemAvailable
-    # shows the host's memory, the group's limit is what the process can really have.
+def test_a_containers_memory_limit_bounds_what_is_free(tmp_path, proc, files, free):
+    # Linux control groups (kernel documentation, admin-guide/cgroup-v2 "memory.max",
+    # "memory.current", "memory.stat"; cgroup-v1/memory "limit_in_bytes", "usage_in_bytes",
+    # "total_inactive_file"): inside a container MemAvailable shows the host's memory; the
+    # tightest limit from the process's group up, less what is used but reclaimable, is what
+    # the process can really have.
     import measure.audio_io as aio
 
+    root = tmp_path / "cgroup"
+    root.mkdir()
     for name, text in files.items():
-        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
-        (tmp_path / name).write_text(text)
+        (root / name).parent.mkdir(parents=True, exist_ok=True)
+        (root / name).write_text(text)
+    (tmp_path / "proc_cgroup").write_text(proc)
     meminfo = tmp_path / "meminfo"
     meminfo.write_text("MemTotal:       16000000 kB\nMemAvailable:    8000000 kB\n")
     host = 8000000 * 1024
-    got = aio.available_memory_bytes(meminfo=str(meminfo), cgroup_root=str(tmp_path))
+    got = aio.available_memory_bytes(meminfo=str(meminfo), cgroup_root=str(root),
+                                     proc_cgroup=str(tmp_path / "proc_cgroup"))
     assert got == (host if free is None else min(host, free))
