@@ -7,13 +7,13 @@ one folder is atomic, so each file is either its old self or its new self, never
 of more than one file, three more things make the *set* all-or-nothing:
 
 - **Intent.** Before the first rename, a small ``.NAME.XXXXXXXX.commit`` file lists every
-  (temporary, target, inode) and every file the set removes, fsynced. A run killed between two
-  renames (SIGKILL, power loss) leaves that intent behind with complete temporaries, and the
-  next run in the folder finishes the renames (rolls forward) before it does anything else. An
-  intent that is not complete JSON was never acted on: it is removed with its temporaries, and
-  the old set stands. The inodes (a rename keeps them) tell a set that can still be finished
-  from one whose temporaries were discarded or whose targets a newer run has written since:
-  that one is left alone, and no removal is replayed over a newer file.
+  (temporary, target, identity) and every file the set removes, fsynced. A run killed between
+  two renames (SIGKILL, power loss) leaves that intent behind with complete temporaries, and
+  the next run in the folder finishes the renames (rolls forward) before it does anything else.
+  An intent that is not complete JSON was never acted on: it is removed with its temporaries,
+  and the old set stands. The identities (inode, size, mtime: a rename keeps them) tell a set
+  that can still be finished from one whose temporaries were discarded or whose targets a newer
+  run has written since: that one is left alone, and no removal is replayed over a newer file.
 - **Folder lock.** The renames and the roll-forward happen under an exclusive ``flock`` of the
   folder itself, so two runs writing the same set commit one after the other: the files left are
   one run's set, never a mix.
@@ -157,32 +157,40 @@ def _finish_dead_commits(folder: Path, locked: bool) -> int:
     return sum(_roll_forward(folder, n) for n in names if locked or _old(folder / n))
 
 
-def _ino(path: Path) -> int | None:
+def _identity(path: Path) -> list[int] | None:
+    """(inode, size, mtime in ns) of ``path``: what a rename keeps, and what a newer file at a
+    reused inode is very unlikely to share."""
     try:
-        return os.stat(path).st_ino
+        st = os.stat(path)
     except OSError:
         return None
+    return [st.st_ino, st.st_size, st.st_mtime_ns]
 
 
-def _names(entries: object) -> list[tuple[str, str, int]]:
-    # [[from, to, inode], ...] of plain names in the folder; anything else is not an intent
+def _names(entries: object) -> list[tuple[str, str, list[int] | None]]:
+    # [[from, to, identity], ...] of plain names in the folder ([from, to] from an earlier
+    # version: no identity); anything else is not an intent
     out = []
-    for a, b, ino in entries:  # type: ignore[attr-defined]
+    for entry in entries:  # type: ignore[attr-defined]
+        a, b, ident = (*entry, None) if len(entry) == 2 else entry
         a, b = str(a), str(b)
-        if os.sep in a + b or "/" in a + b or not isinstance(ino, int):
-            raise ValueError("names and inodes only")
-        out.append((a, b, ino))
+        if os.sep in a + b or "/" in a + b or not (
+                ident is None or (isinstance(ident, list) and len(ident) == 3
+                                  and all(isinstance(v, int) for v in ident))):
+            raise ValueError("names and identities only")
+        out.append((a, b, ident))
     return out
 
 
 def _roll_forward(folder: Path, name: str) -> int:
     """Finish the commit an intent describes, or void it; 1 if it was finished.
 
-    The intent lists each new file as (temporary, target, inode of the temporary) and each file
-    to remove as (name, grave, its inode). A rename keeps the inode, so each new file is either
-    still staged or already in place with that inode; if one is neither (its temporary was
-    discarded, or a newer run has written the target since), the set cannot be finished and
-    nothing is done: what was renamed stays, and a removal is never replayed over a newer file.
+    The intent lists each new file as (temporary, target, identity of the temporary) and each
+    file to remove as (name, grave, its identity), an identity being (inode, size, mtime). A
+    rename keeps all three, so each new file is either still staged or already in place as
+    itself; if one is neither (its temporary was discarded, or a newer run has written the
+    target since), the set cannot be finished and nothing is done: what was renamed stays, and
+    a removal is never replayed over a newer file.
     """
     intent = folder / name
     try:
@@ -193,8 +201,8 @@ def _roll_forward(folder: Path, name: str) -> int:
         with contextlib.suppress(OSError):
             os.unlink(intent)
         return 0
-    whole = all((folder / tmp).exists() or _ino(folder / target) == ino
-                for tmp, target, ino in renames)
+    whole = all((folder / tmp).exists() or ident is None or _identity(folder / target) == ident
+                for tmp, target, ident in renames)
     done = int(whole)
     if whole:
         for tmp, target, _ in renames:
@@ -207,8 +215,8 @@ def _roll_forward(folder: Path, name: str) -> int:
                 done = 0
                 break
     if done:
-        for gone, grave, ino in removes:
-            if _ino(folder / gone) == ino:  # the very file the run meant, not a newer one
+        for gone, grave, ident in removes:
+            if ident is not None and _identity(folder / gone) == ident:  # not a newer file
                 with contextlib.suppress(OSError):
                     os.replace(folder / gone, folder / grave)
                     os.unlink(folder / grave)
@@ -406,8 +414,8 @@ class FileSet:
         # if it was written whole, void if not, before the temporaries are discarded.
         first = renames[0][1]
         intent = folder / f".{first.name}.{secrets.token_hex(8)}{INTENT_SUFFIX}"
-        doc = {"rename": [[a.name, b.name, os.stat(a).st_ino] for a, b in renames],
-               "remove": [[a.name, b.name, os.stat(a).st_ino] for a, b in removes]}
+        doc = {"rename": [[a.name, b.name, _identity(a)] for a, b in renames],
+               "remove": [[a.name, b.name, _identity(a)] for a, b in removes]}
         try:
             fd = os.open(intent, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
             try:

@@ -198,7 +198,7 @@ def _cgroup_free_bytes(root: Path, proc_cgroup: Path) -> int | None:
     allocation; Linux kernel documentation, admin-guide/cgroup-v2 "memory.max", "memory.stat",
     and cgroup-v1/memory "limit_in_bytes"); None without a limit or without cgroups."""
     try:
-        lines = proc_cgroup.read_text(encoding="ascii").splitlines()
+        lines = proc_cgroup.read_text(encoding="utf-8", errors="surrogateescape").splitlines()
     except OSError:
         lines = []
     groups = []  # (version, folder of the group's files)
@@ -215,8 +215,12 @@ def _cgroup_free_bytes(root: Path, proc_cgroup: Path) -> int | None:
     best = None
     for version, base, rel in groups:
         limit_name, usage_name, cache_key = _CGROUP_FILES[version]
-        folder = base / rel.lstrip("/")
-        if not folder.is_dir():  # a path outside this namespace's view: its root
+        folder = Path(os.path.normpath(base / rel.lstrip("/")))
+        try:
+            inside = (folder == base or base in folder.parents) and folder.is_dir()
+        except (OSError, ValueError):
+            inside = False
+        if not inside:  # a path outside this namespace's view ("/../.."): its root
             folder = base
         while True:
             room = _room_in_group(folder, limit_name, usage_name, cache_key)
@@ -232,7 +236,7 @@ def _room_in_group(folder: Path, limit_name: str, usage_name: str, cache_key: st
     try:
         limit = (folder / limit_name).read_text(encoding="ascii").strip()
         usage = int((folder / usage_name).read_text(encoding="ascii").strip())
-    except (OSError, ValueError):
+    except (OSError, ValueError):  # UnicodeDecodeError is a ValueError
         return None
     if not limit.isdigit() or int(limit) >= 1 << 60:  # "max", or v1's "no limit"
         return None
@@ -324,7 +328,7 @@ def _our_sidecar(side: Path) -> dict[str, Any] | None:
     try:
         with open(side, "rb") as fh:
             doc = json.loads(fh.read(1 << 24))
-    except (OSError, ValueError):
+    except (OSError, ValueError, RecursionError):  # RecursionError: absurdly nested JSON
         return None
     return doc if isinstance(doc, dict) else None
 

@@ -185,7 +185,8 @@ def _jobs(captures: Path, root: Path, settings: dict[str, Any]) -> tuple[list[di
             side = audio_io.read_json(t.json)
             audio_io.check_pair(t.wav, side, side=t.json, sha256=_sha(t.wav))
             sweep = session.resolve_sweep(side.get("sweep_file"), t.wav.parent,
-                                          sha256=side.get("sweep_sha256"), hash_of=_sha)
+                                          sha256=side.get("sweep_sha256"), hash_of=_sha,
+                                          take=t.wav.name)
             if sweep is None:
                 raise ValueError(f"its sidecar names no sweep file that exists "
                                  f"({side.get('sweep_file')!r})")

@@ -268,7 +268,8 @@ def latest_takes(room_folder: str | os.PathLike[str]) -> list[tuple[Take, dict[s
 
 def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
                   sha256: str | None = None,
-                  hash_of: Callable[[Path], str] = file_sha256) -> Path | None:
+                  hash_of: Callable[[Path], str] = file_sha256,
+                  take: str = "the take") -> Path | None:
     """The sweep file a take's sidecar names (``sweep_file``): as given, or beside the
     captures tree (``CAPTURES/../NAME``, ``CAPTURES/../sweeps/NAME``, ``CAPTURES/sweeps/NAME``);
     None when none exists.
@@ -276,13 +277,15 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
     With the take's ``sweep_sha256``: where the file of that name now holds another sweep
     (replaced with ``measure sweep --force``), the one kept beside it,
     ``STEM.replaced-XXXXXXXX.wav`` with the hash's first 8 digits, when it is there.
-    ``hash_of`` gives a file's SHA-256 (a caller that resolves many takes passes a memo).
+    ``hash_of`` gives a file's SHA-256 (a caller that resolves many takes passes a memo);
+    ``take`` names the take in messages.
 
     Raises
     ------
     AudioFileError
-        With a ``sha256`` that is not one, or when files of that name exist but none (nor a
-        kept copy) is that sweep: a take is never recovered with another sweep.
+        With a ``sha256`` that is not one, when files of that name exist but none (nor a
+        kept copy) is that sweep (a take is never recovered with another sweep), or when one
+        cannot be read.
     """
     if not named:
         return None
@@ -293,20 +296,25 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
     if sha256 is None:
         return found
     if not (isinstance(sha256, str) and re.fullmatch(r"[0-9a-f]{64}", sha256)):
-        raise AudioFileError(f"the take's sweep_sha256 {sha256!r} is not a SHA-256 (64 hex "
+        raise AudioFileError(f"{take}: its sweep_sha256 {sha256!r} is not a SHA-256 (64 hex "
                              "digits); restore the take's sidecar from a backup")
     # The very sweep, under its own name or kept aside (also when a replacement was
     # interrupted before the new file was in place); never another sweep of that name.
     for cand in places:
         for path in (cand, replaced_path(cand, sha256)):
-            if path.is_file() and hash_of(path) == sha256:
-                return path
+            try:
+                if path.is_file() and hash_of(path) == sha256:
+                    return path
+            except OSError as err:
+                raise AudioFileError(f"cannot read {path} ({err.strerror or err}), a candidate "
+                                     f"for {take}'s sweep; check its permissions") from err
     if found is None:
         return None
     raise AudioFileError(
-        f"{found} is not the sweep the take was recorded with (its SHA-256 differs from the "
+        f"{found} is not the sweep {take} was recorded with (its SHA-256 differs from the "
         f"take's sweep_sha256 {sha256[:8]}...) and no kept copy "
-        f"{replaced_path(found, sha256).name} is beside it; restore that sweep file")
+        f"{replaced_path(found, sha256).name} is beside it; restore that sweep file (or, where "
+        "the command has it, name the right one with --sweep)")
 
 
 def recover_take(audio: Any, sidecar: dict[str, Any], sweep: Any, *, name: str = "the take"):

@@ -91,6 +91,10 @@ GIB = 1 << 30
                          "memory/grp/memory.usage_in_bytes": "1\n"}, None),
     # the group's path is outside this namespace's view: the namespace's root counts
     ("0::/elsewhere\n", {"memory.max": f"{GIB}\n", "memory.current": "0\n"}, GIB),
+    # a namespaced process sees "/../.." paths: never read above the root
+    ("0::/../other\n", {"../memory.max": "900\n", "../memory.current": "0\n"}, None),
+    ("0::/caf\u00e9.slice\n", {"caf\u00e9.slice/memory.max": f"{GIB}\n",
+                              "caf\u00e9.slice/memory.current": "0\n"}, GIB),
     ("", {}, None),
 ])
 def test_a_containers_memory_limit_bounds_what_is_free(tmp_path, proc, files, free):
@@ -106,7 +110,7 @@ def test_a_containers_memory_limit_bounds_what_is_free(tmp_path, proc, files, fr
     for name, text in files.items():
         (root / name).parent.mkdir(parents=True, exist_ok=True)
         (root / name).write_text(text)
-    (tmp_path / "proc_cgroup").write_text(proc)
+    (tmp_path / "proc_cgroup").write_text(proc, encoding="utf-8")
     meminfo = tmp_path / "meminfo"
     meminfo.write_text("MemTotal:       16000000 kB\nMemAvailable:    8000000 kB\n")
     host = 8000000 * 1024

@@ -124,15 +124,30 @@ def test_the_clean_up_removes_dead_runs_temporaries_but_not_live_ones(tmp_path):
 
 
 def _intent(folder: Path, name: str, renames, removes=()) -> Path:
-    """An intent as a commit writes it: each (from, to) with the inode of the new file (still
-    staged under ``from``, or in place under ``to``) or of the file to remove."""
-    def ino(a: str, b: str) -> int:
-        return (folder / a if (folder / a).exists() else folder / b).stat().st_ino
+    """An intent as a commit writes it: each (from, to) with the identity (inode, size, mtime)
+    of the new file (still staged under ``from``, or in place under ``to``) or of the file to
+    remove."""
+    def ident(a: str, b: str) -> list[int]:
+        st = (folder / a if (folder / a).exists() else folder / b).stat()
+        return [st.st_ino, st.st_size, st.st_mtime_ns]
 
     path = folder / name
-    path.write_text(json.dumps({"rename": [[a, b, ino(a, b)] for a, b in renames],
-                                "remove": [[a, b, ino(a, b)] for a, b in removes]}))
+    path.write_text(json.dumps({"rename": [[a, b, ident(a, b)] for a, b in renames],
+                                "remove": [[a, b, ident(a, b)] for a, b in removes]}))
     return path
+
+
+def test_an_intent_of_the_earlier_form_is_still_finished(tmp_path):
+    # [[temporary, target], ...] without identities, as the first version of this wrote them.
+    _write_run(str(tmp_path / "a.wav"), 1)
+    _write_run(str(tmp_path / "new.wav"), 2)
+    os.replace(tmp_path / "new.json", tmp_path / ".a.json.00000000000000aa.part")
+    os.replace(tmp_path / "new.wav", tmp_path / "a.wav")
+    (tmp_path / ".a.wav.00000000000000bb.commit").write_text(json.dumps(
+        {"rename": [[".a.wav.00000000000000cc.part", "a.wav"],
+                    [".a.json.00000000000000aa.part", "a.json"]]}))
+    assert _files.clean_folder(tmp_path, force=True) == (1, 0)
+    assert _consistent_run(tmp_path / "a.wav") == 2 and _debris(tmp_path) == []
 
 
 def test_a_set_killed_between_its_renames_is_finished_by_the_next_run(tmp_path):
@@ -413,3 +428,11 @@ def test_a_take_that_appears_while_a_file_is_written_at_its_name_is_not_replaced
     monkeypatch.setattr(_files.FileSet, "commit", real)
     assert made[0].wav == target and audio_io.read_audio(target).x.shape == (1, 100)
     assert _debris(target.parent) == []
+
+
+def test_a_sidecar_of_absurdly_nested_json_is_not_a_traceback(tmp_path):
+    # json.loads raises RecursionError (not ValueError) on deep nesting: the guards that read
+    # a sidecar beside a target must take it as "not one of ours", not crash.
+    (tmp_path / "x.json").write_text("[" * 200_000)
+    audio_io.write_audio(tmp_path / "x.wav", np.full(100, 0.25), FS)
+    assert (tmp_path / "x.json").read_text() == "[" * 200_000  # not ours: left alone

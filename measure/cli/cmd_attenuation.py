@@ -121,7 +121,8 @@ def _from_room_folder(folder: Path, sweep_opt: str | None) -> dict[str, Any]:
     out = {"h": [], "labels": [], "distances": [], "angles": [], "fs": None, "air": {}}
     for take, side in takes:
         path = Path(sweep_opt) if sweep_opt else session.resolve_sweep(
-            side.get("sweep_file"), folder, sha256=side.get("sweep_sha256"))
+            side.get("sweep_file"), folder, sha256=side.get("sweep_sha256"),
+            take=take.wav.name)
         if path is None:
             raise AudioFileError(
                 f"{take.wav.name}: its sidecar names no sweep file that exists "

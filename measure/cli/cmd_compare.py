@@ -110,7 +110,8 @@ def _measured(path: Path, sweep_opt: str | None) -> tuple[Any, int, str]:
 
         named = doc.get("sweep_file") if isinstance(doc, dict) else None
         sweep_path = Path(sweep_opt) if sweep_opt else resolve_sweep(
-            named, path.parent, sha256=doc.get("sweep_sha256"))
+            named, path.parent, sha256=doc.get("sweep_sha256") if isinstance(doc, dict) else None,
+            take=path.name)
         if sweep_path is None:
             raise ParameterError(f"{path}: a take, but its sidecar names no sweep file that "
                                  f"exists ({named!r}); give --sweep SWEEP.wav")
