@@ -289,6 +289,9 @@ def resolve_sweep(named: str | None, room_folder: str | os.PathLike[str], *,
     """
     if not named:
         return None
+    if not isinstance(named, str) or "\0" in named:
+        raise AudioFileError(f"{take}: its sweep_file {named!r} is not a file name; restore "
+                             "the take's sidecar from a backup")
     p, folder = Path(named), Path(room_folder)
     places = (p, folder.parent.parent / p, folder.parent.parent / "sweeps" / p.name,
               folder.parent / "sweeps" / p.name)

@@ -256,6 +256,9 @@ def test_a_take_is_never_recovered_with_another_sweep_of_its_sweeps_name(tmp_pat
         session.resolve_sweep("s.wav", room, sha256=old_sha)
     with pytest.raises(AudioFileError, match="not a SHA-256"):
         session.resolve_sweep("s.wav", room, sha256="../../etc")
+    for named in (5, "s\0.wav"):  # a damaged sidecar
+        with pytest.raises(AudioFileError, match="not a file name"):
+            session.resolve_sweep(named, room, sha256=old_sha)
     assert session.resolve_sweep("missing.wav", room, sha256=old_sha) is None
 
 
