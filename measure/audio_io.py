@@ -20,7 +20,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from measure._files import file_set
+from measure._files import FileSet, file_set
 from measure._validate import check_fs
 from measure.errors import AudioFileError
 
@@ -201,7 +201,7 @@ def _cgroup_free_bytes(root: Path, proc_cgroup: Path) -> int | None:
         lines = proc_cgroup.read_text(encoding="utf-8", errors="surrogateescape").splitlines()
     except OSError:
         lines = []
-    groups = []  # (version, folder of the group's files)
+    groups = []  # (cgroup version, its hierarchy's root, the group's path in it)
     for line in lines:
         parts = line.split(":", 2)
         if len(parts) != 3:
@@ -305,10 +305,16 @@ def atomic_writer(path: str | os.PathLike[str], mode: str = "wb"):
     if "b" not in mode:
         raise ValueError("atomic_writer writes bytes; open it with mode 'wb'")
     target = Path(path)
-    refuse_replacing_take(target)
     with file_set() as files:
-        files.guard(lambda: refuse_replacing_take(target))  # again, under the folder lock
+        _guard_take(files, target)
         yield files.open(target)
+
+
+def _guard_take(files: FileSet, target: Path) -> None:
+    """Refuse to write over a take: now (before any work) and again under the folder lock at
+    the commit (a take recorded meanwhile)."""
+    refuse_replacing_take(target)
+    files.guard(lambda: refuse_replacing_take(target))
 
 
 def refuse_replacing_take(target: Path) -> None:
@@ -365,9 +371,8 @@ def write_audio(path: str | os.PathLike[str], x: np.ndarray, fs: int, *,
     """
     target = Path(path)
     a, fmt = _audio_for_writing(target, x, fs)
-    refuse_replacing_take(target)  # before the work; again under the lock
     with file_set() as files:
-        files.guard(lambda: refuse_replacing_take(target))
+        _guard_take(files, target)
         _write_samples(files.open(target), a, fs, subtype, fmt)
         # The sidecar of the file this one replaces describes the old samples (a rendered
         # model written over a measured response's name): it goes in the same commit, decided
@@ -430,8 +435,7 @@ def write_pairs(pairs, *, subtype: Subtype = "FLOAT") -> list[tuple[Path, Path]]
     with file_set() as files:
         for path, x, fs, sidecar in pairs:
             target = Path(path)
-            refuse_replacing_take(target)  # before the work; again under the lock
-            files.guard(lambda target=target: refuse_replacing_take(target))
+            _guard_take(files, target)
             sha = stage_audio(files, target, x, fs, subtype=subtype)
             side = sidecar_path(target)
             files.open(side).write((dumps({**sidecar, "audio_sha256": sha}) + "\n")
